@@ -1,0 +1,438 @@
+/*
+ * wavetrim - command-line client of wavetrimd.
+ *
+ *   wavetrim [OPTIONS] WORD...        send one control request, print reply
+ *   wavetrim [OPTIONS] watch [-n N]   print a line per status message
+ *
+ * The request is the words joined by spaces (a word holding a space or a
+ * quote is sent double-quoted); the reply is one JSON object.  By default the
+ * result is printed as "name: value" lines; --json prints the reply as it
+ * came.  Exit status: 0 when the daemon said ok, 1 when it refused (the
+ * reason goes to stderr), 2 when it could not be reached or the command line
+ * is wrong.
+ */
+#include <errno.h>
+#include <getopt.h>
+#include <signal.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include <zmq.h>
+
+#include "wt_config.h"
+#include "wt_jsonparse.h"
+
+#define REQUEST_MAX 4096
+#define REPLY_MAX (1 << 20)
+#define TOKENS_MAX 16384
+
+static volatile sig_atomic_t stop_flag;
+
+static void on_signal(int sig)
+{
+	(void)sig;
+	stop_flag = 1;
+}
+
+static void usage(FILE *out)
+{
+	fprintf(out,
+		"usage: wavetrim [OPTIONS] WORD...      send one control request\n"
+		"       wavetrim [OPTIONS] watch [-n N] print a line per status message\n"
+		"\n"
+		"options:\n"
+		"  -c, --config FILE       read the daemon's endpoints from FILE\n"
+		"  -e, --control ENDPOINT  control endpoint (default from the option table)\n"
+		"  -t, --telemetry ENDPOINT telemetry endpoint (for watch)\n"
+		"      --json              print the daemon's JSON reply unchanged\n"
+		"  -w, --timeout MS        give up after MS milliseconds (default 5000)\n"
+		"  -h, --help              this text\n"
+		"\n"
+		"Ask the daemon for its words with `wavetrim help`.\n");
+}
+
+/* Append word w to buf, quoting it when it holds blanks or quotes. */
+static int append_word(char *buf, size_t cap, size_t *len, const char *w)
+{
+	int quote = w[0] == '\0' || strpbrk(w, " \t\"\\") != NULL;
+	size_t n = *len;
+
+	if (n > 0) {
+		if (n + 1 >= cap) {
+			return -ENOSPC;
+		}
+		buf[n++] = ' ';
+	}
+	if (quote) {
+		if (n + 1 >= cap) {
+			return -ENOSPC;
+		}
+		buf[n++] = '"';
+	}
+	for (const char *p = w; *p; p++) {
+		if (*p == '\n' || *p == '\r') {
+			return -EINVAL;
+		}
+		if (quote && (*p == '"' || *p == '\\')) {
+			if (n + 1 >= cap) {
+				return -ENOSPC;
+			}
+			buf[n++] = '\\';
+		}
+		if (n + 1 >= cap) {
+			return -ENOSPC;
+		}
+		buf[n++] = *p;
+	}
+	if (quote) {
+		if (n + 1 >= cap) {
+			return -ENOSPC;
+		}
+		buf[n++] = '"';
+	}
+	buf[n] = '\0';
+	*len = n;
+	return 0;
+}
+
+/* Print one JSON value as text: strings unquoted, arrays space-separated. */
+static void print_value(FILE *out, const char *js, const wt_jtok *t, int i)
+{
+	char s[1024];
+
+	switch (t[i].type) {
+	case WT_JSON_STRING:
+		if (wt_jsonp_string(js, &t[i], s, sizeof(s)) >= 0) {
+			fputs(s, out);
+		}
+		break;
+	case WT_JSON_ARRAY:
+		for (int k = 0; k < t[i].size; k++) {
+			if (k > 0) {
+				fputc(' ', out);
+			}
+			print_value(out, js, t, wt_jsonp_element(t, i, k));
+		}
+		break;
+	default:
+		fwrite(js + t[i].start, 1, t[i].end - t[i].start, out);
+		break;
+	}
+}
+
+/* Print an object as "prefix.name: value" lines, recursing into objects. */
+static void print_members(FILE *out, const char *js, const wt_jtok *t, int obj,
+			  const char *prefix)
+{
+	int i = obj + 1;
+
+	for (int m = 0; m < t[obj].size; m++) {
+		char key[256];
+		char name[512];
+		int v = i + 1;
+
+		if (wt_jsonp_string(js, &t[i], key, sizeof(key)) < 0) {
+			snprintf(key, sizeof(key), "?");
+		}
+		snprintf(name, sizeof(name), "%s%s%s", prefix,
+			 prefix[0] ? "." : "", key);
+		if (t[v].type == WT_JSON_OBJECT && t[v].size > 0) {
+			print_members(out, js, t, v, name);
+		} else {
+			fprintf(out, "%s: ", name);
+			print_value(out, js, t, v);
+			fputc('\n', out);
+		}
+		i = t[v].next;
+	}
+}
+
+/* One line of "name=value" for a status message. */
+static void print_status_line(const char *js, size_t len, wt_jtok *t)
+{
+	int n = wt_jsonp_parse(js, len, t, TOKENS_MAX, NULL);
+	int i = 1;
+
+	if (n <= 0 || t[0].type != WT_JSON_OBJECT) {
+		printf("(unreadable status message)\n");
+		return;
+	}
+	for (int m = 0; m < t[0].size; m++) {
+		char key[128];
+		int v = i + 1;
+
+		if (t[v].type != WT_JSON_OBJECT && t[v].type != WT_JSON_ARRAY &&
+		    wt_jsonp_string(js, &t[i], key, sizeof(key)) >= 0) {
+			printf("%s%s=", m ? " " : "", key);
+			print_value(stdout, js, t, v);
+		}
+		i = t[v].next;
+	}
+	putchar('\n');
+	fflush(stdout);
+}
+
+static int do_request(void *ctx, const char *endpoint, const char *line,
+		      int timeout_ms, int json)
+{
+	void *sock = zmq_socket(ctx, ZMQ_REQ);
+	int zero = 0;
+	int rc = 2;
+	char *reply = NULL;
+	wt_jtok *t = NULL;
+	int len, n, ok_i, res_i, err_i;
+
+	if (!sock) {
+		fprintf(stderr, "wavetrim: zmq_socket: %s\n",
+			zmq_strerror(errno));
+		return 2;
+	}
+	zmq_setsockopt(sock, ZMQ_LINGER, &zero, sizeof(zero));
+	zmq_setsockopt(sock, ZMQ_RCVTIMEO, &timeout_ms, sizeof(timeout_ms));
+	zmq_setsockopt(sock, ZMQ_SNDTIMEO, &timeout_ms, sizeof(timeout_ms));
+	if (zmq_connect(sock, endpoint) != 0) {
+		fprintf(stderr, "wavetrim: cannot connect to %s: %s\n",
+			endpoint, zmq_strerror(errno));
+		goto out;
+	}
+	if (zmq_send(sock, line, strlen(line), 0) < 0) {
+		fprintf(stderr, "wavetrim: cannot send to %s: %s\n", endpoint,
+			zmq_strerror(errno));
+		goto out;
+	}
+	reply = malloc(REPLY_MAX + 1);
+	t = malloc(sizeof(*t) * TOKENS_MAX);
+	if (!reply || !t) {
+		fprintf(stderr, "wavetrim: out of memory\n");
+		goto out;
+	}
+	do {
+		len = zmq_recv(sock, reply, REPLY_MAX, 0);
+	} while (len < 0 && errno == EINTR && !stop_flag);
+	if (len < 0) {
+		fprintf(stderr,
+			"wavetrim: no reply from %s within %d ms (is wavetrimd "
+			"running?)\n",
+			endpoint, timeout_ms);
+		goto out;
+	}
+	if (len > REPLY_MAX) {
+		fprintf(stderr, "wavetrim: reply longer than %d bytes\n",
+			REPLY_MAX);
+		goto out;
+	}
+	reply[len] = '\0';
+	n = wt_jsonp_parse(reply, (size_t)len, t, TOKENS_MAX, NULL);
+	ok_i = n > 0 ? wt_jsonp_member(reply, t, 0, "ok") : -1;
+	if (ok_i < 0) {
+		fprintf(stderr, "wavetrim: malformed reply: %s\n", reply);
+		goto out;
+	}
+	rc = wt_jsonp_true(&t[ok_i]) ? 0 : 1;
+	if (json) {
+		puts(reply);
+		goto out;
+	}
+	if (rc != 0) {
+		char msg[1024] = "refused";
+
+		err_i = wt_jsonp_member(reply, t, 0, "error");
+		if (err_i >= 0) {
+			wt_jsonp_string(reply, &t[err_i], msg, sizeof(msg));
+		}
+		fprintf(stderr, "wavetrim: %s\n", msg);
+		goto out;
+	}
+	res_i = wt_jsonp_member(reply, t, 0, "result");
+	if (res_i >= 0) {
+		if (t[res_i].type == WT_JSON_OBJECT) {
+			print_members(stdout, reply, t, res_i, "");
+		} else {
+			print_value(stdout, reply, t, res_i);
+			putchar('\n');
+		}
+	} else {
+		puts("ok");
+	}
+out:
+	free(t);
+	free(reply);
+	zmq_close(sock);
+	return rc;
+}
+
+static int do_watch(void *ctx, const char *endpoint, long count, int json,
+		    int timeout_ms)
+{
+	void *sock = zmq_socket(ctx, ZMQ_SUB);
+	int zero = 0;
+	int rc = 2;
+	char *msg = malloc(REPLY_MAX + 1);
+	wt_jtok *t = malloc(sizeof(*t) * TOKENS_MAX);
+	static const char topic[] = "status ";
+	long seen = 0;
+
+	if (!sock || !msg || !t) {
+		fprintf(stderr, "wavetrim: cannot set up watch\n");
+		goto out;
+	}
+	zmq_setsockopt(sock, ZMQ_LINGER, &zero, sizeof(zero));
+	zmq_setsockopt(sock, ZMQ_RCVTIMEO, &timeout_ms, sizeof(timeout_ms));
+	zmq_setsockopt(sock, ZMQ_SUBSCRIBE, topic, strlen(topic));
+	if (zmq_connect(sock, endpoint) != 0) {
+		fprintf(stderr, "wavetrim: cannot connect to %s: %s\n",
+			endpoint, zmq_strerror(errno));
+		goto out;
+	}
+	rc = 0;
+	while (!stop_flag && (count <= 0 || seen < count)) {
+		int len = zmq_recv(sock, msg, REPLY_MAX, 0);
+		size_t skip = strlen(topic);
+
+		if (len < 0) {
+			if (errno == EINTR) {
+				continue;
+			}
+			fprintf(stderr,
+				"wavetrim: no status from %s within %d ms\n",
+				endpoint, timeout_ms);
+			rc = 2;
+			break;
+		}
+		if (len > REPLY_MAX || (size_t)len < skip) {
+			continue;
+		}
+		msg[len] = '\0';
+		if (json) {
+			puts(msg + skip);
+			fflush(stdout);
+		} else {
+			print_status_line(msg + skip, (size_t)len - skip, t);
+		}
+		seen++;
+	}
+out:
+	free(t);
+	free(msg);
+	if (sock) {
+		zmq_close(sock);
+	}
+	return rc;
+}
+
+int main(int argc, char **argv)
+{
+	static const struct option longopts[] = {
+		{"config", required_argument, NULL, 'c'},
+		{"control", required_argument, NULL, 'e'},
+		{"telemetry", required_argument, NULL, 't'},
+		{"json", no_argument, NULL, 'j'},
+		{"timeout", required_argument, NULL, 'w'},
+		{"help", no_argument, NULL, 'h'},
+		{NULL, 0, NULL, 0},
+	};
+	wt_config *cfg = NULL;
+	wt_error err;
+	const char *control = NULL;
+	const char *telemetry = NULL;
+	const char *config_path = NULL;
+	int json = 0;
+	int timeout_ms = 5000;
+	int rc = 2;
+	int opt;
+	void *ctx = NULL;
+	char line[REQUEST_MAX];
+	size_t len = 0;
+
+	/* Options stop at the first word, so request words may begin with '-'. */
+	while ((opt = getopt_long(argc, argv, "+c:e:t:w:h", longopts, NULL)) !=
+	       -1) {
+		switch (opt) {
+		case 'c':
+			config_path = optarg;
+			break;
+		case 'e':
+			control = optarg;
+			break;
+		case 't':
+			telemetry = optarg;
+			break;
+		case 'j':
+			json = 1;
+			break;
+		case 'w':
+			timeout_ms = atoi(optarg);
+			if (timeout_ms <= 0) {
+				fprintf(stderr, "wavetrim: bad timeout %s\n",
+					optarg);
+				return 2;
+			}
+			break;
+		case 'h':
+			usage(stdout);
+			return 0;
+		default:
+			usage(stderr);
+			return 2;
+		}
+	}
+	if (optind >= argc) {
+		usage(stderr);
+		return 2;
+	}
+	if (wt_config_create(&cfg, &err) != 0) {
+		fprintf(stderr, "wavetrim: %s\n", err.msg);
+		return 2;
+	}
+	if (config_path && wt_config_load(cfg, config_path, &err) != 0) {
+		fprintf(stderr, "wavetrim: %s\n", err.msg);
+		goto out;
+	}
+	if (!control) {
+		control = wt_config_string(cfg, WT_OPT_DAEMON_CONTROL);
+	}
+	if (!telemetry) {
+		telemetry = wt_config_string(cfg, WT_OPT_DAEMON_TELEMETRY);
+	}
+	signal(SIGINT, on_signal);
+	signal(SIGTERM, on_signal);
+	ctx = zmq_ctx_new();
+	if (!ctx) {
+		fprintf(stderr, "wavetrim: zmq_ctx_new failed\n");
+		goto out;
+	}
+	if (strcmp(argv[optind], "watch") == 0) {
+		long count = 0;
+
+		for (int k = optind + 1; k < argc; k++) {
+			if (strcmp(argv[k], "-n") == 0 && k + 1 < argc) {
+				count = atol(argv[++k]);
+			} else {
+				fprintf(stderr,
+					"wavetrim: watch takes only -n N\n");
+				goto out;
+			}
+		}
+		rc = do_watch(ctx, telemetry, count, json, timeout_ms);
+		goto out;
+	}
+	line[0] = '\0';
+	for (int k = optind; k < argc; k++) {
+		int e = append_word(line, sizeof(line), &len, argv[k]);
+
+		if (e != 0) {
+			fprintf(stderr, "wavetrim: request %s\n",
+				e == -EINVAL ? "holds a line break"
+					     : "too long");
+			goto out;
+		}
+	}
+	rc = do_request(ctx, control, line, timeout_ms, json);
+out:
+	if (ctx) {
+		zmq_ctx_term(ctx);
+	}
+	wt_config_destroy(cfg);
+	return rc;
+}
