@@ -12,7 +12,7 @@
 #include <time.h>
 
 /** Nanoseconds per second, millisecond and microsecond. */
-#define WT_NS_PER_S 1000000000ull
+#define WT_NS_PER_S  1000000000ull
 #define WT_NS_PER_MS 1000000ull
 #define WT_NS_PER_US 1000ull
 

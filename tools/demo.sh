@@ -15,4 +15,4 @@ and Strehl, and stop both cleanly.
 MSG
 	exit 0
 fi
-exec "$here/tools/demo-run.sh" "$here"
+exec "$here/tools/demo-run.sh" "$here" "$here/build"

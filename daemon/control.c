@@ -1,0 +1,1233 @@
+/*
+ * control.c - wavetrimd's control thread: one request line in, one JSON
+ * reply out (the protocol of lib/wt_request.h).
+ *
+ * This thread owns the running configuration, the calibration's master
+ * copies (interaction matrix, its SVD, control matrix, singular values,
+ * reference slopes, flat) and every HDF5 call (save, load): HDF5 is not
+ * thread-safe, so no other thread of the daemon touches it.  It also turns
+ * a finished interaction-matrix measurement into a control matrix (SVD,
+ * truncation) - never the loop thread.
+ *
+ * Changes reach the loop through the mailbox, one at a time: post() writes
+ * the message, publishes its sequence number and waits until the loop has
+ * applied it between two frames (at most one poll slice plus one frame
+ * later), then reads the loop's answer and the pointers it handed back.
+ */
+#include <errno.h>
+#include <math.h>
+#include <stdarg.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <time.h>
+
+#include <zmq.h>
+
+#include "wt_clock.h"
+#include "wt_recon.h"
+#include "wtd.h"
+
+/* How long a request waits for the loop to apply its change. */
+#define MB_TIMEOUT_NS (3 * WT_NS_PER_S)
+
+struct wtd_ctl {
+	struct wtd *d;
+	wt_config *scratch;
+	char *reply, *result;
+	size_t reply_cap, result_cap;
+	bool shutdown;
+
+	/* calibration master copies */
+	double *D; /* n_slopes x n_act */
+	bool have_D;
+	wt_svd *svd; /* of D, computed when needed */
+	double *sv;  /* n_sv */
+	int n_sv;
+	bool have_sv;
+	float *R;     /* installed control matrix, or NULL */
+	bool R_stale; /* R was not made from the current D */
+	int modes, recommended;
+	double condition;
+	long missing; /* measurements missing in the last matrix run */
+	float *ref;   /* installed reference slopes */
+	bool have_ref;
+	float *flat;   /* installed flat */
+	double *norms; /* n_act scratch */
+	char created[32];
+	char source[16];
+	char file[WT_REQUEST_LINE_MAX + 1];
+};
+
+/* Sections whose options wavetrimd reads (the others are the simulator's). */
+static bool daemon_section(const char *section)
+{
+	static const char *const mine[] = {
+		"sensor", "mirror", "control", "calibration",
+		"driver", "daemon", "safety",
+	};
+	size_t i;
+
+	for (i = 0; i < sizeof(mine) / sizeof(mine[0]); i++) {
+		if (strcmp(section, mine[i]) == 0) {
+			return true;
+		}
+	}
+	return false;
+}
+
+/* --- status shared with the telemetry thread ------------------------------ */
+
+static void publish_slow(struct wtd_ctl *ctl)
+{
+	struct wtd *d = ctl->d;
+
+	pthread_mutex_lock(&d->slow_mu);
+	d->slow.gain = wt_config_double(d->cfg, WT_OPT_CONTROL_GAIN);
+	d->slow.leak = wt_config_double(d->cfg, WT_OPT_CONTROL_LEAK);
+	d->slow.modes = ctl->R ? ctl->modes : 0;
+	d->slow.recommended = ctl->recommended;
+	d->slow.condition = ctl->condition;
+	d->slow.have_interaction = ctl->have_D;
+	d->slow.have_matrix = ctl->R != NULL;
+	d->slow.have_reference = ctl->have_ref;
+	snprintf(d->slow.source, sizeof(d->slow.source), "%s", ctl->source);
+	snprintf(d->slow.file, sizeof(d->slow.file), "%s", ctl->file);
+	snprintf(d->slow.created, sizeof(d->slow.created), "%s", ctl->created);
+	pthread_mutex_unlock(&d->slow_mu);
+	atomic_store(&d->driver_timeout_ns,
+		     (unsigned long long)wt_config_int(
+			     d->cfg, WT_OPT_DRIVER_TIMEOUT_MS) *
+			     WT_NS_PER_MS);
+	atomic_store(
+		&d->status_period_ns,
+		(unsigned long long)(1e9 /
+				     wt_config_double(
+					     d->cfg, WT_OPT_DAEMON_STATUS_HZ)));
+}
+
+/* An event from this thread: {"event":name,"t_ns":..,"frame":..,<body>}. */
+static void post_event(struct wtd_ctl *ctl, const char *name,
+		       void (*body)(struct wtd_ctl *, wt_json *, const void *),
+		       const void *arg)
+{
+	struct wtd *d = ctl->d;
+	size_t cap = 4096 + 32 * ((size_t)ctl->n_sv + (size_t)d->n_act);
+	char *buf = malloc(cap);
+	wt_json j;
+
+	if (!buf) {
+		return;
+	}
+	wt_json_init(&j, buf, cap);
+	wt_json_object_begin(&j);
+	wt_json_key(&j, "event");
+	wt_json_string(&j, name);
+	wt_json_key(&j, "t_ns");
+	wt_json_uint(&j, wt_clock_ns());
+	wt_json_key(&j, "frame");
+	if (atomic_load(&d->c.have_frame)) {
+		wt_json_uint(&j, atomic_load(&d->c.last_frame));
+	} else {
+		wt_json_null(&j);
+	}
+	if (body) {
+		body(ctl, &j, arg);
+	}
+	wt_json_object_end(&j);
+	if (wt_json_finish(&j) > 0) {
+		wtd_event_post(d, buf);
+	}
+	free(buf);
+}
+
+static void body_file(struct wtd_ctl *ctl, wt_json *j, const void *arg)
+{
+	(void)ctl;
+	wt_json_key(j, "file");
+	wt_json_string(j, arg);
+}
+
+static void body_warning(struct wtd_ctl *ctl, wt_json *j, const void *arg)
+{
+	(void)ctl;
+	wt_json_key(j, "what");
+	wt_json_string(j, arg);
+	wt_json_key(j, "count");
+	wt_json_int(j, 1);
+}
+
+/* --- the mailbox ---------------------------------------------------------- */
+
+/*
+ * Hand m to the loop and wait until it is applied.  Returns the loop's
+ * answer, or -ETIMEDOUT.  The loop's handed-back pointers are in d->mb.
+ */
+static int post(struct wtd_ctl *ctl, const struct wtd_mb_msg *m)
+{
+	struct wtd_mailbox *mb = &ctl->d->mb;
+	unsigned seq =
+		atomic_load_explicit(&mb->posted, memory_order_relaxed) + 1;
+	uint64_t t0 = wt_clock_ns();
+
+	/* The previous message (if one timed out) must be taken first. */
+	while (atomic_load_explicit(&mb->done, memory_order_acquire) !=
+	       seq - 1) {
+		if (wt_clock_ns() - t0 > MB_TIMEOUT_NS ||
+		    atomic_load(&ctl->d->stop)) {
+			return -ETIMEDOUT;
+		}
+		wt_clock_sleep_ns(200 * WT_NS_PER_US);
+	}
+	mb->msg = *m;
+	atomic_store_explicit(&mb->posted, seq, memory_order_release);
+	t0 = wt_clock_ns();
+	while (atomic_load_explicit(&mb->done, memory_order_acquire) != seq) {
+		if (wt_clock_ns() - t0 > MB_TIMEOUT_NS) {
+			wt_log_err(ctl->d->log,
+				   "the loop did not take a "
+				   "change within %llu ms",
+				   (unsigned long long)(MB_TIMEOUT_NS /
+							WT_NS_PER_MS));
+			return -ETIMEDOUT;
+		}
+		wt_clock_sleep_ns(100 * WT_NS_PER_US);
+	}
+	return mb->result;
+}
+
+/* --- building and installing a control matrix ----------------------------- */
+
+/* The recommended count: singular values with sigma_i / sigma_1 >= ratio. */
+static int count_by_ratio(const double *sv, int n, double ratio)
+{
+	int k = 0;
+
+	while (k < n && sv[0] > 0 && sv[k] / sv[0] >= ratio) {
+		k++;
+	}
+	return k;
+}
+
+/*
+ * Control matrix from the interaction matrix with the modes of cfg; install
+ * it.  0, or a negative code with the reason in *err.
+ */
+static int build_matrix(struct wtd_ctl *ctl, const wt_config *cfg,
+			wt_error *err)
+{
+	struct wtd *d = ctl->d;
+	int modes_opt = (int)wt_config_int(cfg, WT_OPT_CONTROL_MODES);
+	double ratio = wt_config_double(cfg, WT_OPT_CONTROL_MIN_SV_RATIO);
+	struct wtd_mb_msg m = {.type = WTD_MB_INSTALL};
+	float *R;
+	int kept, rc;
+	double cond;
+
+	if (!ctl->have_D) {
+		return wt_error_set(err, -ENOENT, "no interaction matrix");
+	}
+	if (!ctl->svd) {
+		rc = wt_svd_compute(ctl->D, d->n_slopes, d->n_act, &ctl->svd,
+				    err);
+		if (rc < 0) {
+			return rc;
+		}
+		ctl->n_sv = wt_svd_count(ctl->svd);
+		memcpy(ctl->sv, wt_svd_values(ctl->svd),
+		       sizeof(double) * (size_t)ctl->n_sv);
+		ctl->have_sv = true;
+	}
+	kept = wt_recon_modes(ctl->svd, modes_opt, ratio);
+	if (kept < 1) {
+		return wt_error_set(err, -ERANGE,
+				    "no mode kept: every singular value is "
+				    "below control.min_sv_ratio %g of the "
+				    "largest",
+				    ratio);
+	}
+	R = malloc(sizeof(float) * (size_t)d->n_act * (size_t)d->n_slopes);
+	if (!R) {
+		return wt_error_set(err, -ENOMEM, "out of memory");
+	}
+	rc = wt_recon_pinv_float(ctl->svd, kept, NULL, R);
+	if (rc < 0) {
+		free(R);
+		return wt_error_set(err, rc, "control matrix: %s",
+				    wt_strerror(rc));
+	}
+	cond = wt_recon_condition(ctl->svd, kept);
+	m.matrix = R;
+	m.i = kept;
+	m.d[0] = cond;
+	rc = post(ctl, &m);
+	if (rc < 0) {
+		if (rc != -ETIMEDOUT) {
+			free(R);
+		}
+		return wt_error_set(err, rc, "%s",
+				    rc == -EBUSY
+					    ? "a calibration is in progress"
+					    : "the loop did not answer");
+	}
+	free((void *)d->mb.old_matrix);
+	ctl->R = R;
+	ctl->R_stale = false;
+	ctl->modes = kept;
+	ctl->condition = cond;
+	ctl->recommended = count_by_ratio(ctl->sv, ctl->n_sv, ratio);
+	return 0;
+}
+
+static void body_report(struct wtd_ctl *ctl, wt_json *j, const void *arg)
+{
+	struct wtd *d = ctl->d;
+	double median;
+	double *sorted;
+	int k;
+
+	(void)arg;
+	wt_json_key(j, "modes");
+	wt_json_int(j, ctl->modes);
+	wt_json_key(j, "recommended");
+	wt_json_int(j, ctl->recommended);
+	wt_json_key(j, "condition");
+	wt_json_double_prec(j, ctl->condition, 6);
+	wt_json_key(j, "singular_values");
+	wt_json_double_array(j, ctl->sv, (size_t)ctl->n_sv, 8);
+	wt_json_key(j, "missing");
+	wt_json_int(j, ctl->missing);
+	/* Actuators whose response is under a quarter of the median: dead,
+	 * weak or unplugged (common practice). */
+	wt_json_key(j, "weak_actuators");
+	wt_json_array_begin(j);
+	sorted = malloc(sizeof(double) * (size_t)d->n_act);
+	if (sorted && wt_calib_response_norms(ctl->D, d->n_slopes, d->n_act,
+					      ctl->norms) == 0) {
+		int n = d->n_act, a, b;
+
+		memcpy(sorted, ctl->norms, sizeof(double) * (size_t)n);
+		for (a = 1; a < n; a++) { /* insertion sort: n is small */
+			double v = sorted[a];
+
+			for (b = a - 1; b >= 0 && sorted[b] > v; b--) {
+				sorted[b + 1] = sorted[b];
+			}
+			sorted[b + 1] = v;
+		}
+		median = n % 2 ? sorted[n / 2]
+			       : 0.5 * (sorted[n / 2 - 1] + sorted[n / 2]);
+		for (k = 0; k < n; k++) {
+			if (ctl->norms[k] < 0.25 * median) {
+				wt_json_int(j, k);
+			}
+		}
+	}
+	free(sorted);
+	wt_json_array_end(j);
+}
+
+/* The current UTC time as "YYYY-MM-DDTHH:MM:SSZ". */
+static void utc_now(char *buf, size_t len)
+{
+	time_t now = time(NULL);
+	struct tm tm;
+
+	buf[0] = '\0';
+	if (gmtime_r(&now, &tm)) {
+		strftime(buf, len, "%Y-%m-%dT%H:%M:%SZ", &tm);
+	}
+}
+
+/* A finished measurement in the loop: take it and act on it. */
+static void pick_up_calibration(struct wtd_ctl *ctl)
+{
+	struct wtd *d = ctl->d;
+	int kind =
+		atomic_load_explicit(&d->c.calib_ready, memory_order_acquire);
+	const wt_calib *cal = wtd_loop_calib(d);
+	struct wtd_mb_msg m = {.type = WTD_MB_INSTALL};
+	wt_error err;
+	int rc, k;
+
+	if (kind == WT_CALIB_NONE) {
+		return;
+	}
+	if (kind == WT_CALIB_REFERENCE) {
+		const double *ref = wt_calib_reference(cal);
+		float *nref = malloc(sizeof(float) * (size_t)d->n_slopes);
+
+		if (!nref || !ref) {
+			free(nref);
+			atomic_store_explicit(&d->c.calib_ready, 0,
+					      memory_order_release);
+			return;
+		}
+		for (k = 0; k < d->n_slopes; k++) {
+			nref[k] = (float)ref[k];
+		}
+		atomic_store_explicit(&d->c.calib_ready, 0,
+				      memory_order_release);
+		m.reference = nref;
+		rc = post(ctl, &m);
+		if (rc < 0) {
+			if (rc != -ETIMEDOUT) {
+				free(nref);
+			}
+			wt_log_err(d->log, "reference slopes not installed: %s",
+				   wt_strerror(rc));
+			return;
+		}
+		free((void *)d->mb.old_reference);
+		ctl->ref = nref;
+		ctl->have_ref = true;
+		wt_log_notice(d->log,
+			      "reference slopes measured and installed");
+		publish_slow(ctl);
+		return;
+	}
+
+	/* The interaction matrix: copy it, release the calibrator, build. */
+	memcpy(ctl->D, wt_calib_interaction(cal),
+	       sizeof(double) * (size_t)d->n_slopes * (size_t)d->n_act);
+	ctl->missing = wt_calib_missing(cal);
+	atomic_store_explicit(&d->c.calib_ready, 0, memory_order_release);
+	ctl->have_D = true;
+	wt_svd_destroy(ctl->svd);
+	ctl->svd = NULL;
+	utc_now(ctl->created, sizeof(ctl->created));
+	snprintf(ctl->source, sizeof(ctl->source), "measured");
+	ctl->file[0] = '\0';
+	rc = build_matrix(ctl, d->cfg, &err);
+	if (rc < 0) {
+		/* The loop keeps the old matrix; it is not saved with D. */
+		ctl->R_stale = ctl->R != NULL;
+		wt_log_err(d->log, "control matrix not built: %s", err.msg);
+		post_event(ctl, "warning", body_warning, err.msg);
+		publish_slow(ctl);
+		return;
+	}
+	wt_log_notice(d->log,
+		      "interaction matrix measured: %d modes kept of %d, "
+		      "condition number %.3g",
+		      ctl->modes, ctl->n_sv, ctl->condition);
+	post_event(ctl, "calibration", body_report, NULL);
+	publish_slow(ctl);
+}
+
+/* --- requests ------------------------------------------------------------- */
+
+/* A request's outcome: the result JSON (in ctl->result) or an error. */
+struct outcome {
+	bool ok;
+	char error[WT_ERROR_MAX];
+};
+
+static void fail(struct outcome *o, const char *fmt, ...)
+	__attribute__((format(printf, 2, 3)));
+
+static void fail(struct outcome *o, const char *fmt, ...)
+{
+	va_list ap;
+
+	o->ok = false;
+	va_start(ap, fmt);
+	vsnprintf(o->error, sizeof(o->error), fmt, ap);
+	va_end(ap);
+}
+
+/* Start a result object in ctl->result. */
+static void result_begin(struct wtd_ctl *ctl, wt_json *j)
+{
+	wt_json_init(j, ctl->result, ctl->result_cap);
+}
+
+static void result_end(struct wtd_ctl *ctl, wt_json *j, struct outcome *o)
+{
+	(void)ctl;
+	if (wt_json_finish(j) < 0) {
+		fail(o, "reply too long");
+		return;
+	}
+	o->ok = true;
+}
+
+static void result_state(struct wtd_ctl *ctl, struct outcome *o)
+{
+	wt_json j;
+
+	result_begin(ctl, &j);
+	wt_json_object_begin(&j);
+	wt_json_key(&j, "state");
+	wt_json_string(&j, wt_state_name(atomic_load(&ctl->d->c.state)));
+	wt_json_object_end(&j);
+	result_end(ctl, &j, o);
+}
+
+static const char *busy_reason(struct wtd_ctl *ctl)
+{
+	if (atomic_load(&ctl->d->c.calib_ready)) {
+		return "the last calibration is still being processed";
+	}
+	return "calibration in progress (open stops it)";
+}
+
+/* The reason for a loop refusal of a state request. */
+static void state_failure(struct wtd_ctl *ctl, struct outcome *o, int rc,
+			  const char *word)
+{
+	switch (rc) {
+	case -EBUSY:
+		fail(o, "%s", busy_reason(ctl));
+		break;
+	case -ENOENT:
+		fail(o, "no control matrix: calibrate or load a calibration "
+			"first");
+		break;
+	case -EPERM:
+		fail(o, "the loop is in fault: open or close first");
+		break;
+	case -ETIMEDOUT:
+		fail(o, "the loop did not answer");
+		break;
+	default:
+		fail(o, "%s refused: %s", word, wt_strerror(rc));
+		break;
+	}
+}
+
+static void do_state(struct wtd_ctl *ctl, int to, const char *word,
+		     struct outcome *o)
+{
+	struct wtd_mb_msg m = {.type = WTD_MB_STATE, .i = to};
+	int rc;
+
+	if (to == WT_STATE_CLOSED && !ctl->R) {
+		fail(o, "no control matrix: calibrate or load a calibration "
+			"first");
+		return;
+	}
+	rc = post(ctl, &m);
+	if (rc < 0) {
+		state_failure(ctl, o, rc, word);
+		return;
+	}
+	result_state(ctl, o);
+}
+
+static void do_flat(struct wtd_ctl *ctl, bool capture, struct outcome *o)
+{
+	struct wtd_mb_msg m = {.type = capture ? WTD_MB_FLAT_CAPTURE
+					       : WTD_MB_FLAT};
+	float *nflat = NULL;
+	int rc;
+
+	if (capture) {
+		nflat = calloc((size_t)ctl->d->n_act, sizeof(float));
+		if (!nflat) {
+			fail(o, "out of memory");
+			return;
+		}
+		m.out = nflat;
+	}
+	rc = post(ctl, &m);
+	if (rc < 0) {
+		if (rc != -ETIMEDOUT) {
+			free(nflat);
+		}
+		state_failure(ctl, o, rc, "flat");
+		return;
+	}
+	if (capture) {
+		free((void *)ctl->d->mb.old_flat);
+		ctl->flat = nflat;
+	}
+	result_state(ctl, o);
+}
+
+static void do_calibrate(struct wtd_ctl *ctl, enum wt_calib_kind kind,
+			 long frames, struct outcome *o)
+{
+	const wt_config *cfg = ctl->d->cfg;
+	struct wtd_mb_msg m = {.type = WTD_MB_CALIBRATE, .i = (int)kind};
+	double lo = wt_config_double(cfg, WT_OPT_MIRROR_LIMIT_LOW);
+	double hi = wt_config_double(cfg, WT_OPT_MIRROR_LIMIT_HIGH);
+	wt_json j;
+	long total;
+	int rc, a;
+
+	m.cp.amplitude = wt_config_double(cfg, WT_OPT_CALIB_AMPLITUDE);
+	m.cp.settle = (int)wt_config_int(cfg, WT_OPT_CALIB_SETTLE);
+	m.cp.average = (int)wt_config_int(cfg, WT_OPT_CALIB_AVERAGE);
+	m.cp.reference_frames =
+		frames > 0 ? (int)frames
+			   : (int)wt_config_int(cfg,
+						WT_OPT_CALIB_REFERENCE_FRAMES);
+	if (kind == WT_CALIB_MATRIX) {
+		/* The same test as wt_calib_start(), with words. */
+		for (a = 0; a < ctl->d->n_act; a++) {
+			float up =
+				(float)((double)ctl->flat[a] + m.cp.amplitude);
+			float down =
+				(float)((double)ctl->flat[a] - m.cp.amplitude);
+
+			if (up > (float)hi || down < (float)lo) {
+				fail(o,
+				     "actuator %d: flat %g +- "
+				     "calibration.amplitude %g leaves the "
+				     "limits [%g, %g]",
+				     a, (double)ctl->flat[a], m.cp.amplitude,
+				     lo, hi);
+				return;
+			}
+		}
+	}
+	rc = post(ctl, &m);
+	if (rc < 0) {
+		if (rc == -EPERM) {
+			fail(o, "calibrations start from open: send open "
+				"first");
+		} else if (rc == -ERANGE) {
+			fail(o, "the pokes would leave the mirror's limits");
+		} else {
+			state_failure(ctl, o, rc, "calibrate");
+		}
+		return;
+	}
+	total = wt_calib_frames(kind, &m.cp, ctl->d->n_act);
+	result_begin(ctl, &j);
+	wt_json_object_begin(&j);
+	wt_json_key(&j, "state");
+	wt_json_string(&j, wt_state_name(WT_STATE_CALIBRATING));
+	wt_json_key(&j, "kind");
+	wt_json_string(&j, wt_calib_kind_name(kind));
+	wt_json_key(&j, "frames");
+	wt_json_int(&j, total);
+	wt_json_object_end(&j);
+	result_end(ctl, &j, o);
+}
+
+/* An option's value, typed as get and config show it. */
+static void option_value(wt_json *j, const wt_config *cfg, const wt_option *o)
+{
+	char text[WT_CONFIG_TEXT_MAX];
+
+	switch (o->type) {
+	case WT_TYPE_INT:
+		wt_json_int(j, wt_config_int(cfg, o->id));
+		break;
+	case WT_TYPE_DOUBLE:
+		wt_json_double(j, wt_config_double(cfg, o->id));
+		break;
+	case WT_TYPE_BOOL:
+		wt_json_bool(j, wt_config_bool(cfg, o->id));
+		break;
+	case WT_TYPE_STRING:
+	case WT_TYPE_ENUM:
+		wt_json_string(j, wt_config_string(cfg, o->id));
+		break;
+	default:
+		if (wt_config_format(cfg, o->id, text, sizeof(text)) < 0) {
+			text[0] = '\0';
+		}
+		wt_json_string(j, text);
+		break;
+	}
+}
+
+static void body_config(struct wtd_ctl *ctl, wt_json *j, const void *arg)
+{
+	const wt_option *o = arg;
+	char key[128];
+
+	snprintf(key, sizeof(key), "%s.%s", o->section, o->key);
+	wt_json_key(j, "key");
+	wt_json_string(j, key);
+	wt_json_key(j, "value");
+	option_value(j, ctl->d->cfg, o);
+}
+
+/* Hand a changed live option to whoever uses it. */
+static int apply_option(struct wtd_ctl *ctl, const wt_config *cfg,
+			const wt_option *o, wt_error *err)
+{
+	struct wtd_mb_msg m = {0};
+	int rc;
+
+	switch (o->id) {
+	case WT_OPT_CONTROL_GAIN:
+		m.type = WTD_MB_GAIN;
+		m.d[0] = wt_config_double(cfg, o->id);
+		break;
+	case WT_OPT_CONTROL_LEAK:
+		m.type = WTD_MB_LEAK;
+		m.d[0] = wt_config_double(cfg, o->id);
+		break;
+	case WT_OPT_MIRROR_LIMIT_LOW:
+	case WT_OPT_MIRROR_LIMIT_HIGH:
+		m.type = WTD_MB_LIMITS;
+		m.d[0] = wt_config_double(cfg, WT_OPT_MIRROR_LIMIT_LOW);
+		m.d[1] = wt_config_double(cfg, WT_OPT_MIRROR_LIMIT_HIGH);
+		break;
+	case WT_OPT_MIRROR_SLEW_LIMIT:
+		m.type = WTD_MB_SLEW;
+		m.d[0] = wt_config_double(cfg, o->id);
+		break;
+	case WT_OPT_SENSOR_BACKGROUND:
+	case WT_OPT_SENSOR_THRESHOLD:
+	case WT_OPT_SENSOR_MIN_FLUX:
+		m.type = WTD_MB_LEVELS;
+		m.d[0] = wt_config_double(cfg, WT_OPT_SENSOR_BACKGROUND);
+		m.d[1] = wt_config_double(cfg, WT_OPT_SENSOR_THRESHOLD);
+		m.d[2] = wt_config_double(cfg, WT_OPT_SENSOR_MIN_FLUX);
+		break;
+	case WT_OPT_DRIVER_TIMEOUT_MS:
+		m.type = WTD_MB_TIMEOUT;
+		m.i = (int)wt_config_int(cfg, o->id);
+		break;
+	case WT_OPT_SAFETY_SAFE_COMMAND:
+	case WT_OPT_SAFETY_MAX_BAD_FRAMES:
+		m.type = WTD_MB_SAFETY;
+		m.i = strcmp(wt_config_string(cfg, WT_OPT_SAFETY_SAFE_COMMAND),
+			     "hold") == 0;
+		m.i2 = (int)wt_config_int(cfg, WT_OPT_SAFETY_MAX_BAD_FRAMES);
+		break;
+	case WT_OPT_DAEMON_FRAME_DECIMATION:
+		m.type = WTD_MB_DECIMATION;
+		m.i = (int)wt_config_int(cfg, o->id);
+		break;
+	case WT_OPT_CONTROL_MODES:
+	case WT_OPT_CONTROL_MIN_SV_RATIO:
+		if (!ctl->have_D) {
+			return 0; /* used at the next calibration */
+		}
+		return build_matrix(ctl, cfg, err);
+	default:
+		/* Read when used (calibration.*, daemon.status_hz). */
+		return 0;
+	}
+	rc = post(ctl, &m);
+	if (rc < 0) {
+		return wt_error_set(err, rc, "the loop refused it: %s",
+				    wt_strerror(rc));
+	}
+	return 0;
+}
+
+static void do_set(struct wtd_ctl *ctl, const wt_request *req,
+		   struct outcome *o)
+{
+	struct wtd *d = ctl->d;
+	const wt_option *opt = req->option;
+	wt_error err;
+	wt_json j;
+	double lo, hi;
+
+	if (!daemon_section(opt->section)) {
+		fail(o, "%s is read by wavetrim-sim, not by wavetrimd",
+		     req->key);
+		return;
+	}
+	wt_config_copy(ctl->scratch, d->cfg);
+	if (wt_config_set(ctl->scratch, req->key, req->value, &err) < 0) {
+		fail(o, "%s", err.msg);
+		return;
+	}
+	lo = wt_config_double(ctl->scratch, WT_OPT_MIRROR_LIMIT_LOW);
+	hi = wt_config_double(ctl->scratch, WT_OPT_MIRROR_LIMIT_HIGH);
+	if (!(lo < hi)) {
+		fail(o,
+		     "mirror.limit_low (%g) must be below mirror.limit_high "
+		     "(%g)",
+		     lo, hi);
+		return;
+	}
+	if (apply_option(ctl, ctl->scratch, opt, &err) < 0) {
+		fail(o, "%s: %s", req->key, err.msg);
+		return;
+	}
+	wt_config_copy(d->cfg, ctl->scratch);
+	publish_slow(ctl);
+	post_event(ctl, "config", body_config, opt);
+	wt_log_info(d->log, "set %s = %s", req->key, req->value);
+	result_begin(ctl, &j);
+	wt_json_object_begin(&j);
+	body_config(ctl, &j, opt);
+	wt_json_object_end(&j);
+	result_end(ctl, &j, o);
+}
+
+static void do_get(struct wtd_ctl *ctl, const wt_request *req,
+		   struct outcome *o)
+{
+	wt_json j;
+
+	result_begin(ctl, &j);
+	wt_json_object_begin(&j);
+	body_config(ctl, &j, req->option);
+	wt_json_key(&j, "live");
+	wt_json_bool(&j, req->option->live);
+	wt_json_object_end(&j);
+	result_end(ctl, &j, o);
+}
+
+static void do_config(struct wtd_ctl *ctl, struct outcome *o)
+{
+	char key[128];
+	wt_json j;
+	size_t i;
+
+	result_begin(ctl, &j);
+	wt_json_object_begin(&j);
+	for (i = 0; i < wt_option_count(); i++) {
+		const wt_option *opt = wt_option_get((wt_opt_id)i);
+
+		snprintf(key, sizeof(key), "%s.%s", opt->section, opt->key);
+		wt_json_key(&j, key);
+		option_value(&j, ctl->d->cfg, opt);
+	}
+	wt_json_object_end(&j);
+	result_end(ctl, &j, o);
+}
+
+static void do_help(struct wtd_ctl *ctl, struct outcome *o)
+{
+	wt_json j;
+	unsigned w;
+
+	result_begin(ctl, &j);
+	wt_json_array_begin(&j);
+	for (w = 0; w < WT_REQ_COUNT; w++) {
+		wt_json_object_begin(&j);
+		wt_json_key(&j, "word");
+		wt_json_string(&j, wt_request_word_name((enum wt_req_word)w));
+		wt_json_key(&j, "usage");
+		wt_json_string(&j, wt_request_usage((enum wt_req_word)w));
+		wt_json_key(&j, "help");
+		wt_json_string(&j, wt_request_help((enum wt_req_word)w));
+		wt_json_object_end(&j);
+	}
+	wt_json_array_end(&j);
+	result_end(ctl, &j, o);
+}
+
+static void do_status(struct wtd_ctl *ctl, struct outcome *o)
+{
+	wt_json j;
+
+	result_begin(ctl, &j);
+	wtd_status_json(ctl->d, &j, ctl->have_sv ? ctl->sv : NULL, ctl->n_sv);
+	result_end(ctl, &j, o);
+}
+
+/* The configuration as INI text (new buffer). */
+static char *config_text(const wt_config *cfg)
+{
+	char *text = NULL;
+	size_t len = 0;
+	FILE *fp = open_memstream(&text, &len);
+
+	if (!fp) {
+		return NULL;
+	}
+	wt_config_write_ini(cfg, fp, NULL);
+	if (fclose(fp) != 0) {
+		free(text);
+		return NULL;
+	}
+	return text;
+}
+
+static void do_save(struct wtd_ctl *ctl, const char *path, struct outcome *o)
+{
+	struct wtd *d = ctl->d;
+	wt_calibration *c = NULL;
+	size_t nm = (size_t)d->n_slopes * (size_t)d->n_act;
+	char *text;
+	wt_error err;
+	wt_json j;
+
+	if (!ctl->have_D) {
+		fail(o, "no interaction matrix to save: calibrate first");
+		return;
+	}
+	if (!ctl->R || ctl->R_stale) {
+		fail(o, "no control matrix made from this interaction matrix "
+			"(see control.modes and control.min_sv_ratio)");
+		return;
+	}
+	if (wt_calibration_create(d->lenslets, d->actuators, d->ppl, &c, &err) <
+	    0) {
+		fail(o, "%s", err.msg);
+		return;
+	}
+	memcpy(c->interaction, ctl->D, nm * sizeof(double));
+	memcpy(c->control, ctl->R, nm * sizeof(float));
+	if (ctl->have_sv) {
+		memcpy(c->singular_values, ctl->sv,
+		       sizeof(double) * (size_t)c->n_sv);
+	}
+	memcpy(c->reference, ctl->ref, sizeof(float) * (size_t)d->n_slopes);
+	memcpy(c->flat, ctl->flat, sizeof(float) * (size_t)d->n_act);
+	c->modes = ctl->modes;
+	text = config_text(d->cfg);
+	if (!text || wt_calibration_set_config(c, text) < 0) {
+		free(text);
+		wt_calibration_destroy(c);
+		fail(o, "out of memory");
+		return;
+	}
+	free(text);
+	snprintf(c->created, sizeof(c->created), "%s", ctl->created);
+	if (!c->created[0]) {
+		wt_calibration_stamp(c);
+	}
+	if (wt_store_save(path, c, &err) < 0) {
+		wt_calibration_destroy(c);
+		fail(o, "%s", err.msg);
+		return;
+	}
+	wt_calibration_destroy(c);
+	snprintf(ctl->file, sizeof(ctl->file), "%s", path);
+	publish_slow(ctl);
+	post_event(ctl, "saved", body_file, path);
+	wt_log_notice(d->log, "calibration saved to %s", path);
+	result_begin(ctl, &j);
+	wt_json_object_begin(&j);
+	wt_json_key(&j, "file");
+	wt_json_string(&j, path);
+	wt_json_object_end(&j);
+	result_end(ctl, &j, o);
+}
+
+/*
+ * Take a loaded (checked) calibration: install its control matrix,
+ * reference and flat (through the mailbox when the loop runs) and keep its
+ * interaction matrix.  On success the arrays move out of c.
+ */
+static int adopt(struct wtd_ctl *ctl, wt_calibration *c, bool running,
+		 wt_error *err)
+{
+	struct wtd *d = ctl->d;
+	struct wtd_mb_msg m = {.type = WTD_MB_INSTALL};
+	double ratio = wt_config_double(d->cfg, WT_OPT_CONTROL_MIN_SV_RATIO);
+	double cond = NAN;
+	int rc;
+
+	if (c->modes < 1) {
+		return wt_error_set(err, -EINVAL,
+				    "the calibration's control matrix keeps no "
+				    "mode");
+	}
+	if (c->singular_values[c->modes - 1] > 0) {
+		cond = c->singular_values[0] / c->singular_values[c->modes - 1];
+	}
+	if (running) {
+		m.matrix = c->control;
+		m.reference = c->reference;
+		m.flat = c->flat;
+		m.i = c->modes;
+		m.d[0] = cond;
+		rc = post(ctl, &m);
+		if (rc == -ETIMEDOUT) {
+			/* The loop may still take them: never free them. */
+			c->control = NULL;
+			c->reference = NULL;
+			c->flat = NULL;
+		}
+		if (rc < 0) {
+			return wt_error_set(
+				err, rc, "%s",
+				rc == -EBUSY ? busy_reason(ctl)
+					     : "the loop did not answer");
+		}
+		free((void *)d->mb.old_matrix);
+		free((void *)d->mb.old_reference);
+		free((void *)d->mb.old_flat);
+	} else {
+		free(ctl->R);
+		free(ctl->ref);
+		free(ctl->flat);
+	}
+	ctl->R = c->control;
+	ctl->R_stale = false;
+	c->control = NULL;
+	ctl->ref = c->reference;
+	c->reference = NULL;
+	ctl->flat = c->flat;
+	c->flat = NULL;
+	ctl->have_ref = true;
+	memcpy(ctl->D, c->interaction,
+	       sizeof(double) * (size_t)d->n_slopes * (size_t)d->n_act);
+	ctl->have_D = true;
+	wt_svd_destroy(ctl->svd);
+	ctl->svd = NULL;
+	memcpy(ctl->sv, c->singular_values, sizeof(double) * (size_t)c->n_sv);
+	ctl->n_sv = c->n_sv;
+	ctl->have_sv = true;
+	ctl->modes = c->modes;
+	ctl->condition = cond;
+	ctl->recommended = count_by_ratio(ctl->sv, ctl->n_sv, ratio);
+	snprintf(ctl->created, sizeof(ctl->created), "%s", c->created);
+	snprintf(ctl->source, sizeof(ctl->source), "file");
+	return 0;
+}
+
+static void do_load(struct wtd_ctl *ctl, const char *path, struct outcome *o)
+{
+	struct wtd *d = ctl->d;
+	wt_calibration *c = NULL;
+	wt_error err;
+	wt_json j;
+
+	if (atomic_load(&d->c.state) == WT_STATE_CALIBRATING ||
+	    atomic_load(&d->c.calib_ready)) {
+		fail(o, "%s", busy_reason(ctl));
+		return;
+	}
+	if (wt_store_load(path, d->lenslets, d->actuators, d->ppl, &c, &err) <
+	    0) {
+		fail(o, "%s", err.msg);
+		return;
+	}
+	if (adopt(ctl, c, true, &err) < 0) {
+		wt_calibration_destroy(c);
+		fail(o, "%s", err.msg);
+		return;
+	}
+	wt_calibration_destroy(c);
+	snprintf(ctl->file, sizeof(ctl->file), "%s", path);
+	publish_slow(ctl);
+	post_event(ctl, "loaded", body_file, path);
+	wt_log_notice(d->log, "calibration loaded from %s (%d modes)", path,
+		      ctl->modes);
+	result_begin(ctl, &j);
+	wt_json_object_begin(&j);
+	wt_json_key(&j, "file");
+	wt_json_string(&j, path);
+	wt_json_key(&j, "modes");
+	wt_json_int(&j, ctl->modes);
+	wt_json_object_end(&j);
+	result_end(ctl, &j, o);
+}
+
+/* One request: the reply text into ctl->reply; returns its length. */
+static int handle(struct wtd_ctl *ctl, const char *line, size_t len)
+{
+	struct outcome o = {.ok = false};
+	wt_request *req = malloc(sizeof(*req));
+	wt_error err;
+	int n;
+
+	if (!req) {
+		return wt_request_reply_error(ctl->reply, ctl->reply_cap,
+					      "out of memory");
+	}
+	if (wt_request_parse(line, len, req, &err) < 0) {
+		free(req);
+		wt_log_debug(ctl->d->log, "request refused: %s", err.msg);
+		return wt_request_reply_error(ctl->reply, ctl->reply_cap,
+					      err.msg);
+	}
+	wt_log_debug(ctl->d->log, "request: %s",
+		     wt_request_word_name(req->word));
+	switch (req->word) {
+	case WT_REQ_STATUS:
+		do_status(ctl, &o);
+		break;
+	case WT_REQ_PING:
+		snprintf(ctl->result, ctl->result_cap, "\"pong\"");
+		o.ok = true;
+		break;
+	case WT_REQ_OPEN:
+		do_state(ctl, WT_STATE_OPEN, "open", &o);
+		break;
+	case WT_REQ_CLOSE:
+		do_state(ctl, WT_STATE_CLOSED, "close", &o);
+		break;
+	case WT_REQ_HOLD:
+		do_state(ctl, WT_STATE_HELD, "hold", &o);
+		break;
+	case WT_REQ_FLAT:
+		do_flat(ctl, req->capture, &o);
+		break;
+	case WT_REQ_REFERENCE:
+		do_calibrate(ctl, WT_CALIB_REFERENCE, req->frames, &o);
+		break;
+	case WT_REQ_CALIBRATE:
+		do_calibrate(ctl, WT_CALIB_MATRIX, 0, &o);
+		break;
+	case WT_REQ_SET:
+		do_set(ctl, req, &o);
+		break;
+	case WT_REQ_GET:
+		do_get(ctl, req, &o);
+		break;
+	case WT_REQ_CONFIG:
+		do_config(ctl, &o);
+		break;
+	case WT_REQ_SAVE:
+		do_save(ctl, req->path, &o);
+		break;
+	case WT_REQ_LOAD:
+		do_load(ctl, req->path, &o);
+		break;
+	case WT_REQ_SHUTDOWN:
+		snprintf(ctl->result, ctl->result_cap, "\"stopping\"");
+		o.ok = true;
+		ctl->shutdown = true;
+		break;
+	case WT_REQ_HELP:
+		do_help(ctl, &o);
+		break;
+	default:
+		fail(&o, "not implemented");
+		break;
+	}
+	free(req);
+	if (!o.ok) {
+		wt_log_info(ctl->d->log, "%.*s: %s", (int)(len < 60 ? len : 60),
+			    line, o.error);
+		return wt_request_reply_error(ctl->reply, ctl->reply_cap,
+					      o.error);
+	}
+	n = wt_request_reply_ok(ctl->reply, ctl->reply_cap, ctl->result);
+	return n;
+}
+
+void *wtd_control_main(void *arg)
+{
+	struct wtd *d = arg;
+	struct wtd_ctl *ctl = d->ctl;
+	zmq_pollitem_t item = {.socket = d->s_control, .events = ZMQ_POLLIN};
+
+	while (!atomic_load(&d->stop)) {
+		zmq_msg_t msg;
+		int rc, n, more = 0;
+		size_t more_len = sizeof(more);
+
+		pick_up_calibration(ctl);
+		rc = zmq_poll(&item, 1, 20);
+		if (rc < 0) {
+			if (zmq_errno() == ETERM) {
+				break;
+			}
+			continue;
+		}
+		if (rc == 0) {
+			continue;
+		}
+		zmq_msg_init(&msg);
+		if (zmq_msg_recv(&msg, d->s_control, ZMQ_DONTWAIT) < 0) {
+			zmq_msg_close(&msg);
+			continue;
+		}
+		zmq_getsockopt(d->s_control, ZMQ_RCVMORE, &more, &more_len);
+		if (more) {
+			/* Read the rest of a multi-part request, refuse it. */
+			while (more) {
+				zmq_msg_t part;
+
+				zmq_msg_init(&part);
+				zmq_msg_recv(&part, d->s_control, 0);
+				zmq_msg_close(&part);
+				more_len = sizeof(more);
+				zmq_getsockopt(d->s_control, ZMQ_RCVMORE, &more,
+					       &more_len);
+			}
+			n = wt_request_reply_error(ctl->reply, ctl->reply_cap,
+						   "a request is one message "
+						   "part");
+		} else {
+			/* A measurement that just finished is taken first, so
+			 * a reply never shows it half done. */
+			pick_up_calibration(ctl);
+			n = handle(ctl, zmq_msg_data(&msg), zmq_msg_size(&msg));
+		}
+		zmq_msg_close(&msg);
+		if (n < 0) {
+			n = wt_request_reply_error(ctl->reply, ctl->reply_cap,
+						   "reply too long");
+		}
+		while (zmq_send(d->s_control, ctl->reply,
+				(size_t)(n > 0 ? n : 0), 0) < 0 &&
+		       zmq_errno() == EINTR) {
+		}
+		if (ctl->shutdown) {
+			wt_log_notice(d->log, "shutdown requested");
+			atomic_store(&d->stop, true);
+		}
+	}
+	zmq_close(d->s_control);
+	d->s_control = NULL;
+	return NULL;
+}
+
+/* --- set-up --------------------------------------------------------------- */
+
+int wtd_control_create(struct wtd *d, wt_calibration *initial,
+		       const char *initial_file, wt_error *err)
+{
+	struct wtd_ctl *ctl = calloc(1, sizeof(*ctl));
+	size_t nm = (size_t)d->n_slopes * (size_t)d->n_act;
+	int rc;
+
+	if (!ctl) {
+		return wt_error_set(err, -ENOMEM, "out of memory");
+	}
+	d->ctl = ctl;
+	ctl->d = d;
+	rc = wt_config_create(&ctl->scratch, err);
+	if (rc < 0) {
+		return rc;
+	}
+	ctl->n_sv = d->n_slopes < d->n_act ? d->n_slopes : d->n_act;
+	ctl->result_cap = 256 * 1024 + 32 * (size_t)ctl->n_sv;
+	ctl->reply_cap = ctl->result_cap + 64;
+	ctl->result = malloc(ctl->result_cap);
+	ctl->reply = malloc(ctl->reply_cap);
+	ctl->D = calloc(nm, sizeof(double));
+	ctl->sv = calloc((size_t)ctl->n_sv, sizeof(double));
+	ctl->norms = calloc((size_t)d->n_act, sizeof(double));
+	ctl->ref = calloc((size_t)d->n_slopes, sizeof(float));
+	ctl->flat = calloc((size_t)d->n_act, sizeof(float));
+	if (!ctl->result || !ctl->reply || !ctl->D || !ctl->sv || !ctl->norms ||
+	    !ctl->ref || !ctl->flat) {
+		return wt_error_set(err, -ENOMEM,
+				    "out of memory for a %d x %d "
+				    "calibration",
+				    d->n_slopes, d->n_act);
+	}
+	if (initial) {
+		rc = adopt(ctl, initial, false, err);
+		if (rc < 0) {
+			return rc;
+		}
+		snprintf(ctl->file, sizeof(ctl->file), "%s",
+			 initial_file ? initial_file : "");
+	}
+	wtd_loop_install_initial(d, ctl->R, ctl->modes, ctl->ref, ctl->flat);
+	publish_slow(ctl);
+	return 0;
+}
+
+void wtd_control_destroy(struct wtd *d)
+{
+	struct wtd_ctl *ctl = d->ctl;
+
+	if (!ctl) {
+		return;
+	}
+	wt_config_destroy(ctl->scratch);
+	wt_svd_destroy(ctl->svd);
+	free(ctl->result);
+	free(ctl->reply);
+	free(ctl->D);
+	free(ctl->sv);
+	free(ctl->norms);
+	free(ctl->R);
+	free(ctl->ref);
+	free(ctl->flat);
+	free(ctl);
+	d->ctl = NULL;
+}

@@ -1,0 +1,76 @@
+/*
+ * e2e_harness.h - end-to-end tests: wavetrim-sim and wavetrimd as real
+ * processes on ipc endpoints in a temporary folder, driven only through the
+ * control protocol, judged by the simulator's truth stream.
+ *
+ * The scenario is config/demo.ini with the endpoints moved into the
+ * temporary folder and any option a test overrides replaced.
+ */
+#ifndef E2E_HARNESS_H
+#define E2E_HARNESS_H
+
+#include <stddef.h>
+#include <stdint.h>
+#include <sys/types.h>
+
+#include "sim_driver.h"
+
+#define E2E_REPLY_MAX 65536
+
+typedef struct e2e {
+	char dir[128];	     /**< temporary folder (removed at stop) */
+	char ini[192];	     /**< the INI file both processes read */
+	char control[256];   /**< daemon control endpoint */
+	char telemetry[256]; /**< daemon telemetry endpoint */
+	char truth[256];     /**< simulator truth endpoint */
+	pid_t sim;
+	pid_t daemon;
+	void *ctx;
+	void *truth_sub;
+	char reply[E2E_REPLY_MAX]; /**< last control reply */
+} e2e;
+
+/**
+ * Write the INI (demo scenario + overrides, a NULL-terminated list of
+ * "section.key=value" strings, may be NULL) into a new temporary folder and
+ * subscribe to the truth stream.  Starts no process.
+ */
+int e2e_setup(e2e *e, const char *const *overrides);
+
+/** Start wavetrim-sim (waits until its truth stream flows). */
+int e2e_start_sim(e2e *e);
+
+/** Start wavetrimd (waits until it answers `ping`), extra args may be NULL. */
+int e2e_start_daemon(e2e *e, const char *const *extra_args);
+
+/** SIGKILL the simulator and reap it. */
+void e2e_kill_sim(e2e *e);
+
+/**
+ * Send one request line (printf-style); the reply is in e->reply.
+ * Returns 1 for ok:true, 0 for ok:false, negative on transport failure.
+ */
+int e2e_request(e2e *e, const char *fmt, ...)
+	__attribute__((format(printf, 2, 3)));
+
+/** The number at the dotted path (e.g. "result.counts.refused") of the
+ * last reply; NAN when absent. */
+double e2e_reply_number(const e2e *e, const char *path);
+
+/** The string at a dotted path of the last reply into out; 0 or -1. */
+int e2e_reply_string(const e2e *e, const char *path, char *out, size_t len);
+
+/** Poll `status` until result.state equals state, or timeout; 0 or -1. */
+int e2e_wait_state(e2e *e, const char *state, int timeout_ms);
+
+/** Next truth record (drops older queued ones if newest != 0); 0 or -1. */
+int e2e_truth(e2e *e, sim_truth *t, int timeout_ms);
+
+/** Skip n truth records and return the last one; 0 or -1. */
+int e2e_truth_skip(e2e *e, int n, sim_truth *t, int timeout_ms);
+
+/** `shutdown` the daemon, SIGTERM the sim, reap both (exit statuses are
+ * returned in *daemon_status, *sim_status when not NULL), remove the folder. */
+void e2e_teardown(e2e *e, int *daemon_status, int *sim_status);
+
+#endif /* E2E_HARNESS_H */

@@ -1,0 +1,303 @@
+/*
+ * test_e2e_loop.c - calibrate and close the loop end to end: wavetrim-sim and
+ * wavetrimd as processes, driven only through the control protocol, judged
+ * by the simulator's truth (the residual wavefront it computed).
+ *
+ * fixture_calibration_* runs first (ctest fixture, see tests/CMakeLists.txt)
+ * and leaves the demo scenario's calibration file for the other cases.
+ */
+#include "wt_test.h"
+
+#include <math.h>
+#include <signal.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <sys/wait.h>
+#include <unistd.h>
+
+#include "e2e_harness.h"
+
+#define CAL_FILE WT_BINARY_DIR "/tests/e2e-demo-calibration.h5"
+
+/* Mean truth RMS (piston removed, nm) over n frames. */
+static double mean_rms(e2e *e, int n, double *strehl)
+{
+	sim_truth t;
+	double sum = 0, s = 0;
+
+	for (int k = 0; k < n; k++) {
+		assert_int_equal(e2e_truth(e, &t, 5000), 0);
+		sum += t.rms_nm;
+		s += t.strehl;
+	}
+	if (strehl) {
+		*strehl = s / n;
+	}
+	return sum / n;
+}
+
+static void start_loaded(e2e *e, const char *const *overrides)
+{
+	assert_int_equal(e2e_setup(e, overrides), 0);
+	assert_int_equal(e2e_start_sim(e), 0);
+	assert_int_equal(e2e_start_daemon(e, NULL), 0);
+	assert_int_equal(e2e_request(e, "load %s", CAL_FILE), 1);
+}
+
+static void stop_clean(e2e *e)
+{
+	int ds, ss;
+
+	e2e_teardown(e, &ds, &ss);
+	assert_int_equal(ds, 0);
+	assert_int_equal(ss, 0);
+}
+
+static void fixture_calibration_is_measured_and_saved(void **state)
+{
+	e2e e;
+	struct stat st;
+	char buf[64];
+
+	(void)state;
+	unlink(CAL_FILE);
+	assert_int_equal(e2e_setup(&e, NULL), 0);
+	assert_int_equal(e2e_start_sim(&e), 0);
+	assert_int_equal(e2e_start_daemon(&e, NULL), 0);
+	/* Closing before any calibration is refused with a reason. */
+	assert_int_equal(e2e_request(&e, "close"), 0);
+	assert_int_equal(e2e_reply_string(&e, "error", buf, sizeof(buf)), 0);
+	/* No `reference` here: it would measure the sample's aberration as
+	 * the target.  The simulator's sensor has no aberration of its own, so
+	 * the default reference (spots on the lenslet axes) is the right one. */
+	assert_int_equal(e2e_request(&e, "calibrate"), 1);
+	assert_int_equal(e2e_wait_state(&e, "calibrating", 5000), 0);
+	assert_int_equal(e2e_wait_state(&e, "open", 120000), 0);
+	/* The control matrix is built off the loop thread: wait for it. */
+	for (int k = 0; k < 200; k++) {
+		assert_int_equal(e2e_request(&e, "status"), 1);
+		if (e2e_reply_number(&e, "result.modes") > 0) {
+			break;
+		}
+		usleep(50000);
+	}
+	/* 140 actuators on 208 subapertures: most modes are kept, and the
+	 * condition number stays moderate (common practice for a well
+	 * registered continuous-facesheet mirror). */
+	assert_true(e2e_reply_number(&e, "result.modes") >= 100);
+	assert_true(e2e_reply_number(&e, "result.modes") <= 140);
+	assert_true(e2e_reply_number(&e, "result.calibration.condition") <
+		    100);
+	assert_int_equal(e2e_request(&e, "save %s", CAL_FILE), 1);
+	assert_int_equal(stat(CAL_FILE, &st), 0);
+	assert_true(st.st_size > 0);
+	stop_clean(&e);
+}
+
+/*
+ * Static sample aberration: the true residual falls by at least 10x and
+ * below lambda/14 (Marechal's criterion for a well-corrected system, Born &
+ * Wolf section 9.3; 65.7 nm at 920 nm) within 50 frames at gain 0.5.
+ */
+static void closed_loop_corrects_static_aberration_below_marechal(void **st)
+{
+	static const char *const ov[] = {"control.gain=0.5",
+					 "control.leak=0", NULL};
+	e2e e;
+	sim_truth t;
+	double rms0, s0, rms1, s1;
+
+	(void)st;
+	start_loaded(&e, ov);
+	rms0 = mean_rms(&e, 10, &s0);
+	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_truth_skip(&e, 50, &t, 5000), 0);
+	rms1 = mean_rms(&e, 5, &s1);
+	print_message("open loop %.1f nm (Strehl %.3f) -> closed %.1f nm "
+		      "(Strehl %.3f)\n",
+		      rms0, s0, rms1, s1);
+	assert_true(rms0 > 300); /* the demo sample: ~0.5 um RMS */
+	assert_true(rms1 <= rms0 / 10);
+	assert_true(rms1 < 920.0 / 14);
+	/* Marechal: S ~ exp(-(2 pi sigma / lambda)^2) > 0.8 at lambda/14. */
+	assert_true(s1 > 0.8);
+	stop_clean(&e);
+}
+
+/* Residual RMS after n frames closed at gain g (loop reopened after). */
+static double residual_at_gain(e2e *e, double g, int n)
+{
+	sim_truth t;
+	double rms;
+
+	assert_int_equal(e2e_request(e, "set control.gain %g", g), 1);
+	assert_int_equal(e2e_request(e, "close"), 1);
+	assert_int_equal(e2e_truth_skip(e, n, &t, 5000), 0);
+	rms = mean_rms(e, 10, NULL);
+	assert_int_equal(e2e_request(e, "open"), 1);
+	assert_int_equal(e2e_truth_skip(e, 5, &t, 5000), 0);
+	return rms;
+}
+
+/*
+ * Two frames of delay: a pure integrator is stable for g < 1 (roots of
+ * z^2 - z + g = 0; Madec 1999, in Roddier (ed.), Adaptive Optics in
+ * Astronomy), so gain 1.2 does not converge while 0.5 does.
+ */
+static void delay_two_diverges_at_gain_1_2_converges_at_0_5(void **st)
+{
+	static const char *const ov[] = {"sim.delay=2", "control.leak=0",
+					 NULL};
+	e2e e;
+	double rms0, good, bad;
+
+	(void)st;
+	start_loaded(&e, ov);
+	rms0 = mean_rms(&e, 5, NULL);
+	good = residual_at_gain(&e, 0.5, 80);
+	bad = residual_at_gain(&e, 1.2, 80);
+	print_message("open %.1f nm, gain 0.5 -> %.1f nm, gain 1.2 -> %.1f "
+		      "nm\n",
+		      rms0, good, bad);
+	assert_true(good < rms0 / 10);
+	assert_true(bad > rms0 / 2);
+	stop_clean(&e);
+}
+
+/*
+ * Leak l with gain g: the correctable part of a constant disturbance
+ * settles at l / (g + l) of itself (steady state of c = (1 - l) c - g (w + c);
+ * common practice).  The uncorrectable floor is measured with no leak and
+ * added in quadrature.
+ */
+static void leak_settles_at_predicted_fraction(void **st)
+{
+	static const char *const ov[] = {"control.gain=0.5",
+					 "control.leak=0", NULL};
+	e2e e;
+	sim_truth t;
+	double rms0, floor_nm, leaky, predicted;
+	const double g = 0.5, l = 0.05;
+
+	(void)st;
+	start_loaded(&e, ov);
+	rms0 = mean_rms(&e, 5, NULL);
+	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_truth_skip(&e, 80, &t, 5000), 0);
+	floor_nm = mean_rms(&e, 10, NULL);
+	assert_int_equal(e2e_request(&e, "set control.leak %g", l), 1);
+	assert_int_equal(e2e_truth_skip(&e, 150, &t, 5000), 0);
+	leaky = mean_rms(&e, 10, NULL);
+	predicted = sqrt(pow(rms0 * l / (g + l), 2) + floor_nm * floor_nm);
+	print_message("open %.1f nm, floor %.1f nm, leak %.2f -> %.1f nm "
+		      "(predicted %.1f)\n",
+		      rms0, floor_nm, l, leaky, predicted);
+	assert_true(fabs(leaky - predicted) < 0.15 * predicted);
+	stop_clean(&e);
+}
+
+/*
+ * The simulator dies mid-loop: the daemon enters fault within its timeout,
+ * and once the simulator is back `close` works again and corrects.
+ */
+static void driver_death_faults_and_close_recovers(void **st)
+{
+	static const char *const ov[] = {"driver.timeout_ms=300", NULL};
+	e2e e;
+	sim_truth t;
+	char state[32];
+	double rms;
+
+	(void)st;
+	start_loaded(&e, ov);
+	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_truth_skip(&e, 30, &t, 5000), 0);
+	e2e_kill_sim(&e);
+	/* 300 ms timeout, plus a status poll period of slack. */
+	assert_int_equal(e2e_wait_state(&e, "fault", 2000), 0);
+	assert_int_equal(e2e_start_sim(&e), 0);
+	/* The daemon stays in fault until told otherwise. */
+	assert_int_equal(e2e_request(&e, "status"), 1);
+	assert_int_equal(e2e_reply_string(&e, "result.state", state,
+					  sizeof(state)),
+			 0);
+	assert_string_equal(state, "fault");
+	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_truth_skip(&e, 60, &t, 5000), 0);
+	rms = mean_rms(&e, 5, NULL);
+	assert_true(rms < 920.0 / 14);
+	stop_clean(&e);
+}
+
+/*
+ * Save, restart the daemon, load, close: the same residual as before the
+ * restart.
+ */
+static void calibration_file_round_trip_gives_same_residual(void **st)
+{
+	static const char *const ov[] = {"control.gain=0.5",
+					 "control.leak=0", NULL};
+	char again[256];
+	e2e e;
+	sim_truth t;
+	double first, second;
+	int ds;
+
+	(void)st;
+	start_loaded(&e, ov);
+	snprintf(again, sizeof(again), "%s/again.h5", e.dir);
+	assert_int_equal(e2e_request(&e, "save %s", again), 1);
+	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_truth_skip(&e, 60, &t, 5000), 0);
+	first = mean_rms(&e, 10, NULL);
+	assert_int_equal(e2e_request(&e, "shutdown"), 1);
+	assert_int_equal(waitpid(e.daemon, &ds, 0), e.daemon);
+	assert_true(WIFEXITED(ds) && WEXITSTATUS(ds) == 0);
+	e.daemon = 0;
+	assert_int_equal(e2e_start_daemon(&e, NULL), 0);
+	assert_int_equal(e2e_request(&e, "load %s", again), 1);
+	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_truth_skip(&e, 60, &t, 5000), 0);
+	second = mean_rms(&e, 10, NULL);
+	print_message("residual %.2f nm before the restart, %.2f nm after\n",
+		      first, second);
+	assert_true(fabs(first - second) < 0.1 * first + 1.0);
+	stop_clean(&e);
+}
+
+/* A calibration made for another mirror is refused at start, exit 2. */
+static void daemon_refuses_calibration_of_other_dimensions(void **st)
+{
+	static const char *const ov[] = {"mirror.actuators=10", NULL};
+	char *argv[] = {(char *)WT_DAEMON_BIN, "-c", NULL, "--calibration",
+			(char *)CAL_FILE, NULL};
+	e2e e;
+	int status;
+	pid_t pid;
+
+	(void)st;
+	assert_int_equal(e2e_setup(&e, ov), 0);
+	argv[2] = e.ini;
+	pid = fork();
+	if (pid == 0) {
+		freopen("/dev/null", "w", stdout);
+		execv(argv[0], argv);
+		_exit(127);
+	}
+	assert_int_equal(waitpid(pid, &status, 0), pid);
+	assert_true(WIFEXITED(status));
+	assert_int_equal(WEXITSTATUS(status), 2);
+	e2e_teardown(&e, NULL, NULL);
+}
+
+static const struct CMUnitTest tests[] = {
+	cmocka_unit_test(fixture_calibration_is_measured_and_saved),
+	cmocka_unit_test(closed_loop_corrects_static_aberration_below_marechal),
+	cmocka_unit_test(delay_two_diverges_at_gain_1_2_converges_at_0_5),
+	cmocka_unit_test(leak_settles_at_predicted_fraction),
+	cmocka_unit_test(driver_death_faults_and_close_recovers),
+	cmocka_unit_test(calibration_file_round_trip_gives_same_residual),
+	cmocka_unit_test(daemon_refuses_calibration_of_other_dimensions),
+};
+
+WT_TEST_MAIN(tests)
