@@ -98,7 +98,7 @@ static int parse_string(parser *p, int parent)
 					}
 				}
 				p->pos += 4;
-			} else if (!strchr("\"\\/bfnrt", c)) {
+			} else if (c == '\0' || !strchr("\"\\/bfnrt", c)) {
 				return fail(p, "unknown escape");
 			}
 		}

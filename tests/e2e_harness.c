@@ -398,6 +398,26 @@ int e2e_truth(e2e *e, sim_truth *t, int timeout_ms)
 	return 0;
 }
 
+int e2e_sync(e2e *e, int timeout_ms)
+{
+	sim_truth t;
+	double last;
+
+	if (e2e_request(e, "status") != 1) {
+		return -1;
+	}
+	last = e2e_reply_number(e, "result.last_frame");
+	if (isnan(last)) {
+		return -1;
+	}
+	do {
+		if (e2e_truth(e, &t, timeout_ms) != 0) {
+			return -1;
+		}
+	} while ((double)t.frame <= last);
+	return 0;
+}
+
 int e2e_truth_skip(e2e *e, int n, sim_truth *t, int timeout_ms)
 {
 	for (int k = 0; k < n; k++) {

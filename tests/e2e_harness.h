@@ -66,6 +66,13 @@ int e2e_wait_state(e2e *e, const char *state, int timeout_ms);
 /** Next truth record (drops older queued ones if newest != 0); 0 or -1. */
 int e2e_truth(e2e *e, sim_truth *t, int timeout_ms);
 
+/**
+ * Drop the truth records of frames the daemon had already answered when
+ * this is called (status result.last_frame), so the next e2e_truth() shows
+ * a frame exposed after every request made so far.  0 or -1.
+ */
+int e2e_sync(e2e *e, int timeout_ms);
+
 /** Skip n truth records and return the last one; 0 or -1. */
 int e2e_truth_skip(e2e *e, int n, sim_truth *t, int timeout_ms);
 

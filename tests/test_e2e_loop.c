@@ -109,8 +109,10 @@ static void closed_loop_corrects_static_aberration_below_marechal(void **st)
 
 	(void)st;
 	start_loaded(&e, ov);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
 	rms0 = mean_rms(&e, 10, &s0);
 	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
 	assert_int_equal(e2e_truth_skip(&e, 50, &t, 5000), 0);
 	rms1 = mean_rms(&e, 5, &s1);
 	print_message("open loop %.1f nm (Strehl %.3f) -> closed %.1f nm "
@@ -132,9 +134,11 @@ static double residual_at_gain(e2e *e, double g, int n)
 
 	assert_int_equal(e2e_request(e, "set control.gain %g", g), 1);
 	assert_int_equal(e2e_request(e, "close"), 1);
+	assert_int_equal(e2e_sync(e, 5000), 0);
 	assert_int_equal(e2e_truth_skip(e, n, &t, 5000), 0);
 	rms = mean_rms(e, 10, NULL);
 	assert_int_equal(e2e_request(e, "open"), 1);
+	assert_int_equal(e2e_sync(e, 5000), 0);
 	assert_int_equal(e2e_truth_skip(e, 5, &t, 5000), 0);
 	return rms;
 }
@@ -153,6 +157,7 @@ static void delay_two_diverges_at_gain_1_2_converges_at_0_5(void **st)
 
 	(void)st;
 	start_loaded(&e, ov);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
 	rms0 = mean_rms(&e, 5, NULL);
 	good = residual_at_gain(&e, 0.5, 80);
 	bad = residual_at_gain(&e, 1.2, 80);
@@ -181,11 +186,14 @@ static void leak_settles_at_predicted_fraction(void **st)
 
 	(void)st;
 	start_loaded(&e, ov);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
 	rms0 = mean_rms(&e, 5, NULL);
 	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
 	assert_int_equal(e2e_truth_skip(&e, 80, &t, 5000), 0);
 	floor_nm = mean_rms(&e, 10, NULL);
 	assert_int_equal(e2e_request(&e, "set control.leak %g", l), 1);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
 	assert_int_equal(e2e_truth_skip(&e, 150, &t, 5000), 0);
 	leaky = mean_rms(&e, 10, NULL);
 	predicted = sqrt(pow(rms0 * l / (g + l), 2) + floor_nm * floor_nm);
@@ -211,6 +219,7 @@ static void driver_death_faults_and_close_recovers(void **st)
 	(void)st;
 	start_loaded(&e, ov);
 	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
 	assert_int_equal(e2e_truth_skip(&e, 30, &t, 5000), 0);
 	e2e_kill_sim(&e);
 	/* 300 ms timeout, plus a status poll period of slack. */
@@ -223,6 +232,7 @@ static void driver_death_faults_and_close_recovers(void **st)
 			 0);
 	assert_string_equal(state, "fault");
 	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
 	assert_int_equal(e2e_truth_skip(&e, 60, &t, 5000), 0);
 	rms = mean_rms(&e, 5, NULL);
 	assert_true(rms < 920.0 / 14);
@@ -248,6 +258,7 @@ static void calibration_file_round_trip_gives_same_residual(void **st)
 	snprintf(again, sizeof(again), "%s/again.h5", e.dir);
 	assert_int_equal(e2e_request(&e, "save %s", again), 1);
 	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
 	assert_int_equal(e2e_truth_skip(&e, 60, &t, 5000), 0);
 	first = mean_rms(&e, 10, NULL);
 	assert_int_equal(e2e_request(&e, "shutdown"), 1);
@@ -257,6 +268,7 @@ static void calibration_file_round_trip_gives_same_residual(void **st)
 	assert_int_equal(e2e_start_daemon(&e, NULL), 0);
 	assert_int_equal(e2e_request(&e, "load %s", again), 1);
 	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
 	assert_int_equal(e2e_truth_skip(&e, 60, &t, 5000), 0);
 	second = mean_rms(&e, 10, NULL);
 	print_message("residual %.2f nm before the restart, %.2f nm after\n",

@@ -62,6 +62,18 @@ class Rig:
             strehl += rec[7]
         return rms / frames, strehl / frames
 
+    def sync(self):
+        """Drop truth of frames answered before now: the simulator runs
+        on while we talk, and its records queue up in our socket."""
+        last = self.ask("status").get("last_frame")
+        if last is None:
+            return
+        while True:
+            if not self.truth.poll(5000):
+                raise RuntimeError("no truth from the simulator")
+            if TRUTH.unpack(self.truth.recv())[2] > last:
+                return
+
     def wait_state(self, state, timeout_s):
         end = time.monotonic() + timeout_s
         while time.monotonic() < end:
@@ -83,6 +95,7 @@ def main():
     rig = Rig(ini)
 
     rig.wait_state("open", 10)
+    rig.sync()
     rms, strehl = rig.truth_mean(20)
     print(f"1. The sample, mirror flat: {rms:.0f} nm RMS of wavefront "
           f"error, Strehl {strehl:.3f} at {wavelength:.0f} nm.")
@@ -106,6 +119,7 @@ def main():
           f"{cal.get('condition', float('nan')):.1f}).")
 
     rig.ask("close")
+    rig.sync()
     rig.truth_mean(args.frames)
     rms1, strehl1 = rig.truth_mean(10)
     print(f"3. Loop closed at gain {status.get('gain')}: after "
