@@ -12,7 +12,9 @@ pkgs=(build-essential cmake pkg-config
 	libzmq3-dev libcmocka-dev libinih-dev
 	liblapacke-dev libopenblas-dev
 	libhdf5-dev libfftw3-dev
-	python3 python3-numpy python3-h5py python3-zmq)
+	python3 python3-numpy python3-h5py python3-zmq
+	libmicrohttpd-dev chromium python3-websocket
+	clang-14 libclang-rt-14-dev llvm-14)
 
 missing=()
 for p in "${pkgs[@]}"; do
