@@ -53,7 +53,7 @@ static void usage(FILE *out)
 	fprintf(out,
 		"usage: wavetrimd -c FILE [--calibration FILE] "
 		"[--log-level LEVEL]\n"
-		"       wavetrimd --help | --help-config\n"
+		"       wavetrimd --help | --help-config | --write-config\n"
 		"\n"
 		"  -c, --config FILE       the INI configuration (required)\n"
 		"      --calibration FILE  install this calibration at start "
@@ -65,9 +65,41 @@ static void usage(FILE *out)
 		"  -h, --help              this text\n"
 		"      --help-config       every option: type, default, range, "
 		"help\n"
+		"      --write-config      a commented INI of the daemon's "
+		"options at their\n"
+		"                          defaults (config/rig-template.ini)\n"
 		"\n"
 		"Control it with `wavetrim help`; the protocol is described "
 		"in lib/wt_request.h.\n");
+}
+
+/* The sections a real rig's daemon reads (the rest are the simulator's). */
+#define WTD_SECTIONS "sensor,mirror,control,calibration,driver,daemon,safety"
+
+/* --write-config: the template for a real rig, from the option table. */
+static int write_template(FILE *out)
+{
+	wt_config *cfg;
+	wt_error err;
+
+	if (wt_config_create(&cfg, &err) != 0) {
+		fprintf(stderr, "wavetrimd: %s\n", err.msg);
+		return 2;
+	}
+	fprintf(out,
+		"; wavetrimd configuration template for a real rig.\n"
+		";\n"
+		"; Every option of the daemon at its default, with its help.  "
+		"Copy this file,\n"
+		"; set the sensor and mirror geometry of your rig, the "
+		"endpoints your driver\n"
+		"; binds, and the mirror's limits (never beyond the maker's).  "
+		"Written by\n"
+		"; `wavetrimd --write-config` from the option table; a test "
+		"checks it is current.\n\n");
+	wt_config_write_ini(cfg, out, WTD_SECTIONS);
+	wt_config_destroy(cfg);
+	return ferror(out) ? 1 : 0;
 }
 
 /* Refuse start-up: one line on stderr, exit status 2. */
@@ -293,6 +325,7 @@ int main(int argc, char **argv)
 		{"log-level", required_argument, NULL, 'L'},
 		{"help", no_argument, NULL, 'h'},
 		{"help-config", no_argument, NULL, 'H'},
+		{"write-config", no_argument, NULL, 'W'},
 		{NULL, 0, NULL, 0},
 	};
 	const char *config_path = NULL, *calib_path = NULL;
@@ -341,6 +374,8 @@ int main(int argc, char **argv)
 		case 'H':
 			wt_config_print_help(stdout);
 			return 0;
+		case 'W':
+			return write_template(stdout);
 		default:
 			refuse("bad arguments (see wavetrimd --help)");
 		}

@@ -3,6 +3,7 @@
  *
  *   wavetrim [OPTIONS] WORD...        send one control request, print reply
  *   wavetrim [OPTIONS] watch [-n N]   print a line per status message
+ *   wavetrim [OPTIONS] snapshot FILE  draw the live panels to FILE.png|.svg
  *
  * The request is the words joined by spaces (a word holding a space or a
  * quote is sent double-quoted); the reply is one JSON object.  By default the
@@ -18,14 +19,16 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include <cblas.h>
 #include <zmq.h>
 
 #include "wt_config.h"
+#include "wt_draw.h"
 #include "wt_jsonparse.h"
 
 #define REQUEST_MAX 4096
-#define REPLY_MAX (1 << 20)
-#define TOKENS_MAX 16384
+#define REPLY_MAX   (1 << 20)
+#define TOKENS_MAX  16384
 
 static volatile sig_atomic_t stop_flag;
 
@@ -38,15 +41,24 @@ static void on_signal(int sig)
 static void usage(FILE *out)
 {
 	fprintf(out,
-		"usage: wavetrim [OPTIONS] WORD...      send one control request\n"
-		"       wavetrim [OPTIONS] watch [-n N] print a line per status message\n"
+		"usage: wavetrim [OPTIONS] WORD...      send one control "
+		"request\n"
+		"       wavetrim [OPTIONS] watch [-n N] print a line per "
+		"status message\n"
+		"       wavetrim [OPTIONS] snapshot FILE.png|FILE.svg\n"
+		"                                       draw the live panels "
+		"to a file\n"
 		"\n"
 		"options:\n"
-		"  -c, --config FILE       read the daemon's endpoints from FILE\n"
-		"  -e, --control ENDPOINT  control endpoint (default from the option table)\n"
+		"  -c, --config FILE       read the daemon's endpoints from "
+		"FILE\n"
+		"  -e, --control ENDPOINT  control endpoint (default from the "
+		"option table)\n"
 		"  -t, --telemetry ENDPOINT telemetry endpoint (for watch)\n"
-		"      --json              print the daemon's JSON reply unchanged\n"
-		"  -w, --timeout MS        give up after MS milliseconds (default 5000)\n"
+		"      --json              print the daemon's JSON reply "
+		"unchanged\n"
+		"  -w, --timeout MS        give up after MS milliseconds "
+		"(default 5000)\n"
 		"  -h, --help              this text\n"
 		"\n"
 		"Ask the daemon for its words with `wavetrim help`.\n");
@@ -173,8 +185,12 @@ static void print_status_line(const char *js, size_t len, wt_jtok *t)
 	fflush(stdout);
 }
 
+/* Print mode of do_request: human lines, the JSON as it came, or nothing
+ * (the caller keeps the reply text). */
+enum reply_out { OUT_HUMAN, OUT_JSON, OUT_KEEP };
+
 static int do_request(void *ctx, const char *endpoint, const char *line,
-		      int timeout_ms, int json)
+		      int timeout_ms, enum reply_out mode, char **keep)
 {
 	void *sock = zmq_socket(ctx, ZMQ_REQ);
 	int zero = 0;
@@ -230,7 +246,12 @@ static int do_request(void *ctx, const char *endpoint, const char *line,
 		goto out;
 	}
 	rc = wt_jsonp_true(&t[ok_i]) ? 0 : 1;
-	if (json) {
+	if (mode == OUT_KEEP && rc == 0) {
+		*keep = reply;
+		reply = NULL;
+		goto out;
+	}
+	if (mode == OUT_JSON) {
 		puts(reply);
 		goto out;
 	}
@@ -259,6 +280,79 @@ out:
 	free(t);
 	free(reply);
 	zmq_close(sock);
+	return rc;
+}
+
+/* snapshot: the status reply plus ~2 s of frame records, drawn to path. */
+static int do_snapshot(void *ctx, const wt_config *cfg, const char *control,
+		       const char *telemetry, const char *path, int timeout_ms)
+{
+	static const char topic[] = "frame ";
+	const size_t skip = sizeof(topic) - 1;
+	const int max_records = 100;
+	void *sock = NULL;
+	char *status = NULL;
+	char *records = NULL;
+	char *msg = NULL;
+	size_t rec = 0, have = 0;
+	int zero = 0, slice = 100, rc = 2;
+	wt_error err;
+
+	/* The drawing code fits Zernike modes with LAPACK: one BLAS thread. */
+	openblas_set_num_threads(1);
+	if (wt_draw_record_size(cfg, &rec, &err) != 0) {
+		fprintf(stderr, "wavetrim: %s\n", err.msg);
+		return 2;
+	}
+	rc = do_request(ctx, control, "status", timeout_ms, OUT_KEEP, &status);
+	if (rc != 0) {
+		return rc;
+	}
+	rc = 2;
+	records = malloc(rec * (size_t)max_records);
+	msg = malloc(skip + rec + 1);
+	sock = zmq_socket(ctx, ZMQ_SUB);
+	if (!records || !msg || !sock) {
+		fprintf(stderr, "wavetrim: out of memory\n");
+		goto out;
+	}
+	zmq_setsockopt(sock, ZMQ_LINGER, &zero, sizeof(zero));
+	zmq_setsockopt(sock, ZMQ_RCVTIMEO, &slice, sizeof(slice));
+	zmq_setsockopt(sock, ZMQ_SUBSCRIBE, topic, skip);
+	if (zmq_connect(sock, telemetry) != 0) {
+		fprintf(stderr, "wavetrim: cannot connect to %s: %s\n",
+			telemetry, zmq_strerror(errno));
+		goto out;
+	}
+	/* Frame records come every daemon.frame_decimation frames; keep the
+	 * newest max_records of what arrives in about two seconds. */
+	for (int waited = 0; waited < 2000 && !stop_flag; waited += slice) {
+		int len = zmq_recv(sock, msg, skip + rec + 1, 0);
+
+		if (len < 0 || (size_t)len != skip + rec) {
+			continue;
+		}
+		if (have == (size_t)max_records) {
+			memmove(records, records + rec, rec * (have - 1));
+			have--;
+		}
+		memcpy(records + rec * have++, msg + skip, rec);
+	}
+	if (wt_draw_snapshot(cfg, status, records, rec * have, path, &err) !=
+	    0) {
+		fprintf(stderr, "wavetrim: %s\n", err.msg);
+		goto out;
+	}
+	printf("%s: %zu frame records drawn%s\n", path, have,
+	       have ? "" : " (no frame telemetry arrived: panels are empty)");
+	rc = 0;
+out:
+	if (sock) {
+		zmq_close(sock);
+	}
+	free(msg);
+	free(records);
+	free(status);
 	return rc;
 }
 
@@ -345,7 +439,8 @@ int main(int argc, char **argv)
 	char line[REQUEST_MAX];
 	size_t len = 0;
 
-	/* Options stop at the first word, so request words may begin with '-'. */
+	/* Options stop at the first word, so request words may begin with '-'.
+	 */
 	while ((opt = getopt_long(argc, argv, "+c:e:t:w:h", longopts, NULL)) !=
 	       -1) {
 		switch (opt) {
@@ -417,6 +512,16 @@ int main(int argc, char **argv)
 		rc = do_watch(ctx, telemetry, count, json, timeout_ms);
 		goto out;
 	}
+	if (strcmp(argv[optind], "snapshot") == 0) {
+		if (argc - optind != 2) {
+			fprintf(stderr,
+				"wavetrim: usage: snapshot FILE.png|.svg\n");
+			goto out;
+		}
+		rc = do_snapshot(ctx, cfg, control, telemetry, argv[optind + 1],
+				 timeout_ms);
+		goto out;
+	}
 	line[0] = '\0';
 	for (int k = optind; k < argc; k++) {
 		int e = append_word(line, sizeof(line), &len, argv[k]);
@@ -428,7 +533,8 @@ int main(int argc, char **argv)
 			goto out;
 		}
 	}
-	rc = do_request(ctx, control, line, timeout_ms, json);
+	rc = do_request(ctx, control, line, timeout_ms,
+			json ? OUT_JSON : OUT_HUMAN, NULL);
 out:
 	if (ctx) {
 		zmq_ctx_term(ctx);
