@@ -2,6 +2,7 @@
  * wt_control.c - leaky integrator with the mirror's safety limits.
  */
 #include "wt_control.h"
+#include "wt_mvm.h"
 
 #include <errno.h>
 #include <math.h>
@@ -11,11 +12,6 @@
 
 /* Largest n_act * n_slopes accepted (a 1 GiB float matrix). */
 #define WT_CONTROL_MAX_ELEMENTS ((size_t)1 << 28)
-
-/* Partial sums per row in the matrix-vector kernel: one AVX register of
- * floats.  Independent lanes let the compiler vectorise without
- * -ffast-math (a single running sum would fix the order of additions). */
-#define WT_LANES 8
 
 struct wt_control {
 	int n_act;
@@ -29,73 +25,6 @@ struct wt_control {
 	float *lo, *hi; /* n_act each */
 	long rejected;
 };
-
-/* Sum of the WT_LANES partial sums, pairwise. */
-static inline float wt_lanes_sum(const float *a)
-{
-	float s01 = a[0] + a[1], s23 = a[2] + a[3];
-	float s45 = a[4] + a[5], s67 = a[6] + a[7];
-
-	return (s01 + s23) + (s45 + s67);
-}
-
-/* u = R s, R rows x cols row-major: 4 rows at a time, float accumulation. */
-static void wt_matvec(const float *restrict r, const float *restrict s,
-		      float *restrict u, int rows, int cols)
-{
-	int row = 0, k, l;
-
-	for (; row + 4 <= rows; row += 4) {
-		const float *r0 = r + (size_t)row * cols;
-		const float *r1 = r0 + cols;
-		const float *r2 = r1 + cols;
-		const float *r3 = r2 + cols;
-		float a0[WT_LANES] = {0}, a1[WT_LANES] = {0};
-		float a2[WT_LANES] = {0}, a3[WT_LANES] = {0};
-		float t0, t1, t2, t3;
-
-		for (k = 0; k + WT_LANES <= cols; k += WT_LANES) {
-			for (l = 0; l < WT_LANES; l++) {
-				float x = s[k + l];
-
-				a0[l] += r0[k + l] * x;
-				a1[l] += r1[k + l] * x;
-				a2[l] += r2[k + l] * x;
-				a3[l] += r3[k + l] * x;
-			}
-		}
-		t0 = wt_lanes_sum(a0);
-		t1 = wt_lanes_sum(a1);
-		t2 = wt_lanes_sum(a2);
-		t3 = wt_lanes_sum(a3);
-		for (; k < cols; k++) {
-			t0 += r0[k] * s[k];
-			t1 += r1[k] * s[k];
-			t2 += r2[k] * s[k];
-			t3 += r3[k] * s[k];
-		}
-		u[row] = t0;
-		u[row + 1] = t1;
-		u[row + 2] = t2;
-		u[row + 3] = t3;
-	}
-	for (; row < rows; row++) {
-		const float *r0 = r + (size_t)row * cols;
-		float a0[WT_LANES] = {0};
-		float t0;
-
-		for (k = 0; k + WT_LANES <= cols; k += WT_LANES) {
-			for (l = 0; l < WT_LANES; l++) {
-				a0[l] += r0[k + l] * s[k + l];
-			}
-		}
-		t0 = wt_lanes_sum(a0);
-		for (; k < cols; k++) {
-			t0 += r0[k] * s[k];
-		}
-		u[row] = t0;
-	}
-}
 
 int wt_control_create(int n_act, int n_slopes, wt_control **out, wt_error *err)
 {
@@ -250,7 +179,7 @@ int wt_control_step(wt_control *c, const float *s, float *cmd,
 		goto out;
 	}
 	if (c->matrix) {
-		wt_matvec(c->matrix, s, next, n_act, c->n_slopes);
+		wt_mvm_own(c->matrix, s, next, n_act, c->n_slopes);
 	} else {
 		memset(next, 0, (size_t)n_act * sizeof(*next));
 	}
