@@ -21,30 +21,6 @@
 
 #include "wt_calib.h"
 
-/* --- seeded random numbers (splitmix64 + Box-Muller) ---------------------- */
-
-static uint64_t rng_state;
-
-static uint64_t rng_next(void)
-{
-	uint64_t z = (rng_state += 0x9e3779b97f4a7c15ull);
-
-	z = (z ^ (z >> 30)) * 0xbf58476d1ce4e5b9ull;
-	z = (z ^ (z >> 27)) * 0x94d049bb133111ebull;
-	return z ^ (z >> 31);
-}
-
-static double rng_uniform(void)
-{
-	return ((double)(rng_next() >> 11) + 0.5) / 9007199254740992.0;
-}
-
-static double rng_gauss(void)
-{
-	return sqrt(-2.0 * log(rng_uniform())) *
-	       cos(2.0 * M_PI * rng_uniform());
-}
-
 /* --- the plant ------------------------------------------------------------ */
 
 #define MAX_DELAY 8
@@ -78,13 +54,13 @@ static void plant_init(struct plant *p, int m, int n, int delay, double sigma)
 	assert_non_null(p->cmd);
 	assert_non_null(p->initial);
 	for (i = 0; i < m * n; i++) {
-		p->D[i] = rng_gauss();
+		p->D[i] = wt_rng_gauss();
 	}
 	for (i = 0; i < m; i++) {
-		p->s0[i] = 3.0 * rng_gauss();
+		p->s0[i] = 3.0 * wt_rng_gauss();
 	}
 	for (i = 0; i < n; i++) {
-		p->initial[i] = (float)(0.3 * rng_gauss());
+		p->initial[i] = (float)(0.3 * wt_rng_gauss());
 	}
 }
 
@@ -119,7 +95,7 @@ static void plant_frame(struct plant *p, float *slopes)
 			s += p->D[i * p->n + j] * c[j];
 		}
 		if (p->sigma > 0) {
-			s += p->sigma * rng_gauss();
+			s += p->sigma * wt_rng_gauss();
 		}
 		slopes[i] = (float)s;
 	}
@@ -192,7 +168,7 @@ static void recovers_interaction_matrix_of_linear_plant(void **state)
 	long frames;
 
 	(void)state;
-	rng_state = wt_test_seed(11);
+	wt_rng_seed(wt_test_seed(11));
 	plant_init(&p, m, n, 1, 0.0);
 	assert_int_equal(wt_calib_create(n, m, &c, NULL), 0);
 	assert_int_equal(wt_calib_start(c, WT_CALIB_MATRIX, &prm, flat, NULL,
@@ -223,10 +199,10 @@ static void recovers_matrix_around_a_non_zero_flat(void **state)
 	int j;
 
 	(void)state;
-	rng_state = wt_test_seed(12);
+	wt_rng_seed(wt_test_seed(12));
 	plant_init(&p, m, n, 2, 0.0);
 	for (j = 0; j < n; j++) {
-		flat[j] = (float)(0.4 * rng_gauss());
+		flat[j] = (float)(0.4 * wt_rng_gauss());
 	}
 	assert_int_equal(wt_calib_create(n, m, &c, NULL), 0);
 	assert_int_equal(wt_calib_start(c, WT_CALIB_MATRIX, &prm, flat, NULL,
@@ -251,7 +227,7 @@ static void settle_discards_frames_of_a_delayed_plant(void **state)
 	float *flat = flat_of(n, 0.0);
 
 	(void)state;
-	rng_state = wt_test_seed(13);
+	wt_rng_seed(wt_test_seed(13));
 	plant_init(&p, m, n, delay, 0.0);
 	assert_int_equal(wt_calib_create(n, m, &c, NULL), 0);
 	/* settle = d - 1: every averaged frame already shows its pattern
@@ -279,7 +255,7 @@ static void short_settle_mixes_in_the_previous_pattern(void **state)
 	int i, j;
 
 	(void)state;
-	rng_state = wt_test_seed(14);
+	wt_rng_seed(wt_test_seed(14));
 	plant_init(&p, m, n, delay, 0.0);
 	assert_int_equal(wt_calib_create(n, m, &c, NULL), 0);
 	assert_int_equal(wt_calib_start(c, WT_CALIB_MATRIX, &prm, flat, NULL,
@@ -323,7 +299,7 @@ static void reference_is_the_average_of_the_kept_frames(void **state)
 	int k, i, rc, total;
 
 	(void)state;
-	rng_state = wt_test_seed(15);
+	wt_rng_seed(wt_test_seed(15));
 	plant_init(&p, m, n, delay, 0.05);
 	assert_int_equal(wt_calib_create(n, m, &c, NULL), 0);
 	assert_int_equal(wt_calib_start(c, WT_CALIB_REFERENCE, &prm, flat, NULL,
@@ -382,7 +358,7 @@ static void commands_are_flat_plus_one_poke_in_order(void **state)
 	int k, j, rc, per = prm.settle + prm.average;
 
 	(void)state;
-	rng_state = wt_test_seed(16);
+	wt_rng_seed(wt_test_seed(16));
 	plant_init(&p, m, n, 1, 0.0);
 	assert_int_equal(wt_calib_create(n, m, &c, NULL), 0);
 	assert_int_equal(wt_calib_start(c, WT_CALIB_MATRIX, &prm, flat, NULL,
@@ -437,7 +413,7 @@ static void averaging_reduces_noise_as_the_standard_error(void **state)
 	int i;
 
 	(void)state;
-	rng_state = wt_test_seed(17);
+	wt_rng_seed(wt_test_seed(17));
 	plant_init(&p, m, n, 1, sigma);
 	assert_int_equal(wt_calib_create(n, m, &c, NULL), 0);
 	assert_int_equal(wt_calib_start(c, WT_CALIB_MATRIX, &prm, flat, NULL,
@@ -471,7 +447,7 @@ static void non_finite_frames_are_not_counted(void **state)
 	int rc;
 
 	(void)state;
-	rng_state = wt_test_seed(18);
+	wt_rng_seed(wt_test_seed(18));
 	plant_init(&p, m, n, 1, 0.0);
 	assert_int_equal(wt_calib_create(n, m, &c, NULL), 0);
 	assert_int_equal(wt_calib_start(c, WT_CALIB_MATRIX, &prm, flat, NULL,
@@ -516,7 +492,7 @@ static void abort_drops_the_run_and_a_new_one_starts_clean(void **state)
 	int k;
 
 	(void)state;
-	rng_state = wt_test_seed(19);
+	wt_rng_seed(wt_test_seed(19));
 	plant_init(&p, m, n, 2, 0.0);
 	assert_int_equal(wt_calib_create(n, m, &c, NULL), 0);
 	assert_int_equal(wt_calib_start(c, WT_CALIB_MATRIX, &prm, flat, NULL,
@@ -603,7 +579,7 @@ static void flickering_subaperture_does_not_corrupt_the_matrix(void **state)
 	double worst_unmasked;
 
 	(void)state;
-	rng_state = wt_test_seed(21);
+	wt_rng_seed(wt_test_seed(21));
 	plant_init(&p, m, n, 1, 0.0);
 	assert_int_equal(wt_calib_create(n, m, &c, NULL), 0);
 	/* With the validity given, each average is over the frames the
@@ -649,7 +625,7 @@ static void subaperture_never_valid_gives_no_response(void **state)
 	int i, j;
 
 	(void)state;
-	rng_state = wt_test_seed(22);
+	wt_rng_seed(wt_test_seed(22));
 	plant_init(&p, m, n, 1, 0.0);
 	assert_int_equal(wt_calib_create(n, m, &c, NULL), 0);
 	assert_int_equal(wt_calib_start(c, WT_CALIB_MATRIX, &prm, flat, NULL,
@@ -688,7 +664,7 @@ static void reference_averages_only_valid_frames(void **state)
 	int k, rc, kept = 0;
 
 	(void)state;
-	rng_state = wt_test_seed(23);
+	wt_rng_seed(wt_test_seed(23));
 	plant_init(&p, m, n, 1, 0.02);
 	assert_int_equal(wt_calib_create(n, m, &c, NULL), 0);
 	assert_int_equal(wt_calib_start(c, WT_CALIB_REFERENCE, &prm, flat, NULL,
@@ -813,9 +789,9 @@ static void response_norms_match_blas(void **state)
 	int i, j;
 
 	(void)state;
-	rng_state = wt_test_seed(20);
+	wt_rng_seed(wt_test_seed(20));
 	for (i = 0; i < m * n; i++) {
-		D[i] = rng_gauss();
+		D[i] = wt_rng_gauss();
 	}
 	for (i = 0; i < m; i++) {
 		D[i * n + 3] = 0;      /* a dead actuator */

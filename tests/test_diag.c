@@ -32,31 +32,6 @@
 #include "wt_geometry.h"
 #include "wt_recon.h"
 
-/* --- seeded random numbers (splitmix64 + Box-Muller) ---------------------- */
-
-static uint64_t rng_state;
-
-static uint64_t rng_next(void)
-{
-	uint64_t z = (rng_state += 0x9e3779b97f4a7c15ull);
-
-	z = (z ^ (z >> 30)) * 0xbf58476d1ce4e5b9ull;
-	z = (z ^ (z >> 27)) * 0x94d049bb133111ebull;
-	return z ^ (z >> 31);
-}
-
-static double rng_uniform(void)
-{
-	return ((double)(rng_next() >> 11) + 0.5) / 9007199254740992.0;
-}
-
-static double rng_gauss(void)
-{
-	double r = sqrt(-2.0 * log(rng_uniform()));
-
-	return r * cos(2.0 * M_PI * rng_uniform());
-}
-
 /* --- the synthetic corrector ---------------------------------------------- */
 
 struct bench {
@@ -323,7 +298,7 @@ static void healthy_noisy_matrix_raises_no_flag(void **state)
 	int m, n, e, rig;
 
 	(void)state;
-	rng_state = wt_test_seed(337);
+	wt_rng_seed(wt_test_seed(337));
 	for (rig = FINE; rig <= FRIED; rig++) {
 		bench_make(&b, rig);
 		m = 2 * b.lens->n_valid;
@@ -336,7 +311,7 @@ static void healthy_noisy_matrix_raises_no_flag(void **state)
 		wt_diag_params_default(&p);
 		p.matrix_noise = 0.02 * peak;
 		for (e = 0; e < m * n; e++) {
-			D[e] += p.matrix_noise * rng_gauss();
+			D[e] += p.matrix_noise * wt_rng_gauss();
 		}
 		r = diagnose(&b, D, &p);
 		print_report(r);
@@ -572,7 +547,7 @@ static double *low_rank(int m, int n, int rank, const double *s)
 			double nrm;
 
 			for (i = 0; i < len; i++) {
-				q[i * rank + c] = rng_gauss();
+				q[i * rank + c] = wt_rng_gauss();
 			}
 			for (prev = 0; prev < c; prev++) {
 				double d = 0;
@@ -632,9 +607,9 @@ static void noise_floor_matches_random_matrix_theory(void **state)
 
 	(void)state;
 	assert_non_null(E);
-	rng_state = wt_test_seed(1980);
+	wt_rng_seed(wt_test_seed(1980));
 	for (e = 0; e < m * n; e++) {
-		E[e] = s * rng_gauss();
+		E[e] = s * wt_rng_gauss();
 	}
 	sv = svd_of(E, m, n, &svd);
 	/* sigma_1 of pure noise ~ s (sqrt(m) + sqrt(n)) (Geman 1980), the
@@ -669,13 +644,13 @@ static void recommended_modes_find_the_signal_rank(void **state)
 	int i, e, modes;
 
 	(void)state;
-	rng_state = wt_test_seed(1912);
+	wt_rng_seed(wt_test_seed(1912));
 	for (i = 0; i < rank; i++) {
 		s[i] = 10.0 * pow(0.1, (double)i / (rank - 1)); /* 10 .. 1 */
 	}
 	A = low_rank(m, n, rank, s);
 	for (e = 0; e < m * n; e++) {
-		A[e] += noise * rng_gauss();
+		A[e] += noise * wt_rng_gauss();
 	}
 	sv = svd_of(A, m, n, &svd);
 	/* Weyl 1912: the signal values stay within ||E|| ~ noise (sqrt(m) +
@@ -747,14 +722,14 @@ static void noise_from_repeated_frames(void **state)
 
 	(void)state;
 	assert_non_null(frames);
-	rng_state = wt_test_seed(1941);
+	wt_rng_seed(wt_test_seed(1941));
 	for (f = 0; f < K; f++) {
 		for (i = 0; i < n; i++) {
 			double sd = 0.02 + 0.001 * i;
 
 			/* a static offset plus white noise */
 			frames[f * n + i] =
-				(float)(1.5 + 0.01 * i + sd * rng_gauss());
+				(float)(1.5 + 0.01 * i + sd * wt_rng_gauss());
 		}
 	}
 	assert_int_equal(
@@ -788,12 +763,12 @@ static void successive_differences_ignore_drift(void **state)
 
 	(void)state;
 	assert_non_null(frames);
-	rng_state = wt_test_seed(153);
+	wt_rng_seed(wt_test_seed(153));
 	for (f = 0; f < K; f++) {
 		for (i = 0; i < n; i++) {
 			/* a drift of 10 noise sigmas over the record */
 			frames[f * n + i] = (float)(0.01 * (10.0 * f / K) +
-						    0.01 * rng_gauss());
+						    0.01 * wt_rng_gauss());
 		}
 	}
 	frames[5 * n + 3] = NAN; /* skipped, not propagated */

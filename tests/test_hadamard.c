@@ -22,31 +22,6 @@
 
 #include "wt_hadamard.h"
 
-/* --- seeded random numbers (splitmix64 + Box-Muller) ---------------------- */
-
-static uint64_t rng_state;
-
-static uint64_t rng_next(void)
-{
-	uint64_t z = (rng_state += 0x9e3779b97f4a7c15ull);
-
-	z = (z ^ (z >> 30)) * 0xbf58476d1ce4e5b9ull;
-	z = (z ^ (z >> 27)) * 0x94d049bb133111ebull;
-	return z ^ (z >> 31);
-}
-
-static double rng_uniform(void)
-{
-	return ((double)(rng_next() >> 11) + 0.5) / 9007199254740992.0;
-}
-
-static double rng_gauss(void)
-{
-	double r = sqrt(-2.0 * log(rng_uniform()));
-
-	return r * cos(2.0 * M_PI * rng_uniform());
-}
-
 /* --- Sylvester's recursion, written out ----------------------------------- */
 
 /* order x order, row-major, by H_1 = [1], H_2m = [H H; H -H]. */
@@ -189,7 +164,7 @@ static void decode_recovers_random_matrix(void **state)
 	size_t t;
 
 	(void)state;
-	rng_state = wt_test_seed(1004);
+	wt_rng_seed(wt_test_seed(1004));
 	for (t = 0; t < sizeof(sizes) / sizeof(sizes[0]); t++) {
 		int n = sizes[t];
 		int order = wt_hadamard_order(n);
@@ -203,7 +178,7 @@ static void decode_recovers_random_matrix(void **state)
 		assert_non_null(out);
 		assert_non_null(work);
 		for (e = 0; e < m * n; e++) {
-			D[e] = rng_gauss();
+			D[e] = wt_rng_gauss();
 		}
 		M = measure_noise_free(D, m, n, order);
 		assert_int_equal(wt_hadamard_decode(M, m, n, out, work), 0);
@@ -272,7 +247,7 @@ static double run_once(const double *D, const double *s0, int m, int n,
 
 				for (f = 0; f < per_state; f++) {
 					acc += s0[i] + clean[i] +
-					       sigma * rng_gauss();
+					       sigma * wt_rng_gauss();
 				}
 				mean[sign * m + i] = acc / per_state;
 			}
@@ -316,10 +291,10 @@ static void noise_case(int n, int frames_total, int trials)
 	assert_int_equal(frames_total % (2 * n), 0);
 	assert_int_equal(frames_total % (2 * order), 0);
 	for (e = 0; e < m * n; e++) {
-		D[e] = rng_gauss();
+		D[e] = wt_rng_gauss();
 	}
 	for (e = 0; e < m; e++) {
-		s0[e] = 3.0 * rng_gauss();
+		s0[e] = 3.0 * wt_rng_gauss();
 	}
 	for (t = 0; t < trials; t++) {
 		sse_single += run_once(D, s0, m, n, 0, frames_total / (2 * n),
@@ -353,14 +328,14 @@ static void noise_case(int n, int frames_total, int trials)
 static void noise_gain_is_n_for_power_of_two(void **state)
 {
 	(void)state;
-	rng_state = wt_test_seed(2004);
+	wt_rng_seed(wt_test_seed(2004));
 	noise_case(16, 192, 300);
 }
 
 static void noise_gain_is_n_for_other_counts(void **state)
 {
 	(void)state;
-	rng_state = wt_test_seed(1979);
+	wt_rng_seed(wt_test_seed(1979));
 	noise_case(12, 192, 300);
 }
 

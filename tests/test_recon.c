@@ -24,37 +24,6 @@
 #define WT_SOURCE_DIR "."
 #endif
 
-/* --- seeded random numbers (splitmix64 + Box-Muller) -------------------- */
-
-static uint64_t rng_state;
-
-static void rng_seed(unsigned long seed)
-{
-	rng_state = seed;
-}
-
-static uint64_t rng_next(void)
-{
-	uint64_t z = (rng_state += 0x9e3779b97f4a7c15ull);
-
-	z = (z ^ (z >> 30)) * 0xbf58476d1ce4e5b9ull;
-	z = (z ^ (z >> 27)) * 0x94d049bb133111ebull;
-	return z ^ (z >> 31);
-}
-
-static double rng_uniform(void)
-{
-	/* (0, 1): never 0, so log() below is finite. */
-	return ((double)(rng_next() >> 11) + 0.5) / 9007199254740992.0;
-}
-
-static double rng_gauss(void)
-{
-	double r = sqrt(-2.0 * log(rng_uniform()));
-
-	return r * cos(2.0 * M_PI * rng_uniform());
-}
-
 static double *gauss_matrix(int rows, int cols)
 {
 	double *a = malloc((size_t)rows * cols * sizeof(*a));
@@ -62,7 +31,7 @@ static double *gauss_matrix(int rows, int cols)
 
 	assert_non_null(a);
 	for (e = 0; e < (size_t)rows * cols; e++) {
-		a[e] = rng_gauss();
+		a[e] = wt_rng_gauss();
 	}
 	return a;
 }
@@ -210,7 +179,7 @@ static void penrose_conditions_tall_full_rank(void **state)
 	double *a;
 
 	(void)state;
-	rng_seed(wt_test_seed(1001));
+	wt_rng_seed(wt_test_seed(1001));
 	a = gauss_matrix(280, 140);
 	check_penrose(a, 280, 140, 140, 1e-13);
 	free(a);
@@ -221,7 +190,7 @@ static void penrose_conditions_wide_full_rank(void **state)
 	double *a;
 
 	(void)state;
-	rng_seed(wt_test_seed(1002));
+	wt_rng_seed(wt_test_seed(1002));
 	a = gauss_matrix(90, 200);
 	check_penrose(a, 90, 200, 90, 1e-13);
 	free(a);
@@ -232,7 +201,7 @@ static void penrose_conditions_rank_deficient(void **state)
 	double *b, *c, *a;
 
 	(void)state;
-	rng_seed(wt_test_seed(1003));
+	wt_rng_seed(wt_test_seed(1003));
 	/* rank 12 as a product (150 x 12)(12 x 100) */
 	b = gauss_matrix(150, 12);
 	c = gauss_matrix(12, 100);
@@ -293,7 +262,7 @@ static void singular_values_match_construction(void **state)
 	int i;
 
 	(void)state;
-	rng_seed(wt_test_seed(1004));
+	wt_rng_seed(wt_test_seed(1004));
 	known_make(&kn, 64, 31);
 	assert_int_equal(wt_svd_compute(kn.d, kn.m, kn.n, &s, NULL), 0);
 	assert_int_equal(wt_svd_count(s), 31);
@@ -323,7 +292,7 @@ static void modes_by_count_keeps_min_of_modes_and_count(void **state)
 	wt_svd *s = NULL;
 
 	(void)state;
-	rng_seed(wt_test_seed(1005));
+	wt_rng_seed(wt_test_seed(1005));
 	known_make(&kn, 20, 9);
 	assert_int_equal(wt_svd_compute(kn.d, kn.m, kn.n, &s, NULL), 0);
 	/* modes > 0: min(modes, count), whatever min_ratio says */
@@ -345,7 +314,7 @@ static void modes_by_ratio_keeps_values_above_threshold(void **state)
 	double ratio;
 
 	(void)state;
-	rng_seed(wt_test_seed(1006));
+	wt_rng_seed(wt_test_seed(1006));
 	/* 11 values sigma_i = 10^(-0.3 i): sigma_i / sigma_1 = 10^(-0.3 i) */
 	known_make(&kn, 30, 11);
 	assert_int_equal(wt_svd_compute(kn.d, kn.m, kn.n, &s, NULL), 0);
@@ -394,7 +363,7 @@ static void mode_gains_scale_each_mode(void **state)
 	int kept = 8, i, j, c;
 
 	(void)state;
-	rng_seed(wt_test_seed(1007));
+	wt_rng_seed(wt_test_seed(1007));
 	known_make(&kn, 48, 13);
 	assert_int_equal(wt_svd_compute(kn.d, kn.m, kn.n, &s, NULL), 0);
 	r = malloc((size_t)kn.n * kn.m * sizeof(*r));
@@ -633,7 +602,7 @@ static void float_variant_matches_double(void **state)
 	int i;
 
 	(void)state;
-	rng_seed(wt_test_seed(1008));
+	wt_rng_seed(wt_test_seed(1008));
 	a = gauss_matrix(70, 30);
 	rd = malloc(elems * sizeof(*rd));
 	rf = malloc(elems * sizeof(*rf));

@@ -18,6 +18,8 @@
 
 #include <cmocka.h>
 
+#include <math.h>
+
 /** Seed for a test's random numbers: WT_TEST_SEED from the environment, or
  * the default; printed so that a failure can be replayed. */
 static inline unsigned long wt_test_seed(unsigned long fallback)
@@ -27,6 +29,46 @@ static inline unsigned long wt_test_seed(unsigned long fallback)
 
 	print_message("seed %lu (set WT_TEST_SEED to replay)\n", seed);
 	return seed;
+}
+
+/*
+ * Seeded random numbers for tests (splitmix64, Steele, Lea & Flood 2014;
+ * normals by Box-Muller).  One stream per test executable: seed it with
+ * wt_rng_seed(wt_test_seed(N)) at the start of each case that draws.
+ */
+static inline uint64_t *wt_test_rng_state(void)
+{
+	static uint64_t state;
+
+	return &state;
+}
+
+static inline void wt_rng_seed(uint64_t seed)
+{
+	*wt_test_rng_state() = seed;
+}
+
+static inline uint64_t wt_rng_next(void)
+{
+	uint64_t z = (*wt_test_rng_state() += 0x9e3779b97f4a7c15ull);
+
+	z = (z ^ (z >> 30)) * 0xbf58476d1ce4e5b9ull;
+	z = (z ^ (z >> 27)) * 0x94d049bb133111ebull;
+	return z ^ (z >> 31);
+}
+
+/** Uniform in (0, 1): never 0, so log() of it is finite. */
+static inline double wt_rng_uniform(void)
+{
+	return ((double)(wt_rng_next() >> 11) + 0.5) / 9007199254740992.0;
+}
+
+/** Standard normal (Box-Muller). */
+static inline double wt_rng_gauss(void)
+{
+	double r = sqrt(-2.0 * log(wt_rng_uniform()));
+
+	return r * cos(2.0 * M_PI * wt_rng_uniform());
 }
 
 #define WT_TEST_MAIN(tests)                                                  \
