@@ -72,7 +72,7 @@ static void fixture_calibration_is_measured_and_saved(void **state)
 	 * the default reference (spots on the lenslet axes) is the right one. */
 	assert_int_equal(e2e_request(&e, "calibrate"), 1);
 	assert_int_equal(e2e_wait_state(&e, "calibrating", 5000), 0);
-	assert_int_equal(e2e_wait_state(&e, "open", 120000), 0);
+	assert_int_equal(e2e_wait_state(&e, "open", 280000), 0);
 	/* The control matrix is built off the loop thread: wait for it. */
 	for (int k = 0; k < 200; k++) {
 		assert_int_equal(e2e_request(&e, "status"), 1);
