@@ -4,6 +4,7 @@
 #include <errno.h>
 #include <fcntl.h>
 #include <ftw.h>
+#include <poll.h>
 #include <math.h>
 #include <signal.h>
 #include <stdarg.h>
@@ -108,22 +109,12 @@ static void put_option(FILE *out, const char *name, const char *value)
 		value);
 }
 
-int e2e_setup(e2e *e, const char *const *overrides)
+/* The scenario with the test's endpoints and overrides, into path. */
+static int write_ini(const e2e *e, const char *path, const char *frames,
+		     const char *commands, const char *const *overrides)
 {
-	FILE *f;
-	int zero = 0;
+	FILE *f = fopen(path, "w");
 
-	memset(e, 0, sizeof(*e));
-	snprintf(e->dir, sizeof(e->dir), "/tmp/wt-e2e-XXXXXX");
-	if (!mkdtemp(e->dir)) {
-		return -1;
-	}
-	snprintf(e->ini, sizeof(e->ini), "%s/test.ini", e->dir);
-	snprintf(e->control, sizeof(e->control), "ipc://%s/control", e->dir);
-	snprintf(e->telemetry, sizeof(e->telemetry), "ipc://%s/telemetry",
-		 e->dir);
-	snprintf(e->truth, sizeof(e->truth), "ipc://%s/truth", e->dir);
-	f = fopen(e->ini, "w");
 	if (!f) {
 		return -1;
 	}
@@ -131,14 +122,8 @@ int e2e_setup(e2e *e, const char *const *overrides)
 		fclose(f);
 		return -1;
 	}
-	{
-		char v[256];
-
-		snprintf(v, sizeof(v), "ipc://%s/frames", e->dir);
-		put_option(f, "driver.frames", v);
-		snprintf(v, sizeof(v), "ipc://%s/commands", e->dir);
-		put_option(f, "driver.commands", v);
-	}
+	put_option(f, "driver.frames", frames);
+	put_option(f, "driver.commands", commands);
 	put_option(f, "daemon.control", e->control);
 	put_option(f, "daemon.telemetry", e->telemetry);
 	put_option(f, "sim.truth", e->truth);
@@ -153,7 +138,35 @@ int e2e_setup(e2e *e, const char *const *overrides)
 		snprintf(name, sizeof(name), "%.*s", (int)(eq - *o), *o);
 		put_option(f, name, eq + 1);
 	}
-	fclose(f);
+	return fclose(f) == 0 ? 0 : -1;
+}
+
+/* Folder, endpoint names and the simulator's INI. */
+static int setup_common(e2e *e, const char *const *overrides)
+{
+	memset(e, 0, sizeof(*e));
+	snprintf(e->dir, sizeof(e->dir), "/tmp/wt-e2e-XXXXXX");
+	if (!mkdtemp(e->dir)) {
+		e->dir[0] = '\0';
+		return -1;
+	}
+	snprintf(e->ini, sizeof(e->ini), "%s/test.ini", e->dir);
+	snprintf(e->control, sizeof(e->control), "ipc://%s/control", e->dir);
+	snprintf(e->telemetry, sizeof(e->telemetry), "ipc://%s/telemetry",
+		 e->dir);
+	snprintf(e->truth, sizeof(e->truth), "ipc://%s/truth", e->dir);
+	snprintf(e->frames, sizeof(e->frames), "ipc://%s/frames", e->dir);
+	snprintf(e->commands, sizeof(e->commands), "ipc://%s/commands",
+		 e->dir);
+	snprintf(e->daemon_frames, sizeof(e->daemon_frames), "%s", e->frames);
+	snprintf(e->daemon_commands, sizeof(e->daemon_commands), "%s",
+		 e->commands);
+	return write_ini(e, e->ini, e->frames, e->commands, overrides);
+}
+
+static int subscribe_truth(e2e *e)
+{
+	int zero = 0;
 
 	e->ctx = zmq_ctx_new();
 	e->truth_sub = zmq_socket(e->ctx, ZMQ_SUB);
@@ -161,6 +174,32 @@ int e2e_setup(e2e *e, const char *const *overrides)
 	zmq_setsockopt(e->truth_sub, ZMQ_SUBSCRIBE, SIM_TRUTH_TOPIC,
 		       strlen(SIM_TRUTH_TOPIC));
 	return zmq_connect(e->truth_sub, e->truth) == 0 ? 0 : -1;
+}
+
+int e2e_setup(e2e *e, const char *const *overrides)
+{
+	if (setup_common(e, overrides) != 0) {
+		return -1;
+	}
+	return subscribe_truth(e);
+}
+
+int e2e_setup_split(e2e *e, const char *const *overrides)
+{
+	if (setup_common(e, overrides) != 0) {
+		return -1;
+	}
+	snprintf(e->daemon_ini, sizeof(e->daemon_ini), "%s/daemon.ini",
+		 e->dir);
+	snprintf(e->daemon_frames, sizeof(e->daemon_frames),
+		 "ipc://%s/daemon-frames", e->dir);
+	snprintf(e->daemon_commands, sizeof(e->daemon_commands),
+		 "ipc://%s/daemon-commands", e->dir);
+	if (write_ini(e, e->daemon_ini, e->daemon_frames, e->daemon_commands,
+		      overrides) != 0) {
+		return -1;
+	}
+	return subscribe_truth(e);
 }
 
 static pid_t spawn(const e2e *e, const char *log_name, char *const argv[])
@@ -241,7 +280,8 @@ int e2e_start_sim(e2e *e)
 
 int e2e_start_daemon(e2e *e, const char *const *extra_args)
 {
-	char *argv[16] = {(char *)WT_DAEMON_BIN, "-c", e->ini};
+	char *argv[16] = {(char *)WT_DAEMON_BIN, "-c",
+			  e->daemon_ini[0] ? e->daemon_ini : e->ini};
 	int n = 3;
 	uint64_t deadline = wt_clock_ns() + 10000000000ull;
 
@@ -400,15 +440,24 @@ int e2e_truth(e2e *e, sim_truth *t, int timeout_ms)
 
 int e2e_sync(e2e *e, int timeout_ms)
 {
+	uint64_t deadline = wt_clock_ns() + (uint64_t)timeout_ms * 1000000ull;
 	sim_truth t;
 	double last;
 
-	if (e2e_request(e, "status") != 1) {
-		return -1;
-	}
-	last = e2e_reply_number(e, "result.last_frame");
-	if (isnan(last)) {
-		return -1;
+	/* A daemon that has not answered a frame yet (just started, or the
+	 * driver is between frames) says null: ask again until it has one. */
+	for (;;) {
+		if (e2e_request(e, "status") != 1) {
+			return -1;
+		}
+		last = e2e_reply_number(e, "result.last_frame");
+		if (!isnan(last)) {
+			break;
+		}
+		if (wt_clock_ns() > deadline) {
+			return -1;
+		}
+		sleep_ms(20);
 	}
 	do {
 		if (e2e_truth(e, &t, timeout_ms) != 0) {
@@ -487,4 +536,115 @@ void e2e_teardown(e2e *e, int *daemon_status, int *sim_status)
 		nftw(e->dir, rm_entry, 8, FTW_DEPTH | FTW_PHYS);
 	}
 	e->daemon = e->sim = 0;
+}
+
+/* Append what fd holds now to buf (kept terminated, the rest dropped);
+ * 0 at end of file, 1 otherwise. */
+static int drain(int fd, char *buf, size_t cap, size_t *len)
+{
+	char chunk[4096];
+	ssize_t n = read(fd, chunk, sizeof(chunk));
+
+	if (n < 0) {
+		return errno == EINTR || errno == EAGAIN ? 1 : 0;
+	}
+	if (n == 0) {
+		return 0;
+	}
+	if (*len + 1 < cap) {
+		size_t room = cap - 1 - *len;
+		size_t k = (size_t)n < room ? (size_t)n : room;
+
+		memcpy(buf + *len, chunk, k);
+		*len += k;
+		buf[*len] = '\0';
+	}
+	return 1;
+}
+
+int e2e_run(char *const argv[], int timeout_ms, e2e_run_result *r)
+{
+	uint64_t start = wt_clock_ns();
+	uint64_t deadline = start + (uint64_t)timeout_ms * 1000000ull;
+	int out[2], err[2];
+	size_t n_out = 0, n_err = 0;
+	int open_out = 1, open_err = 1, status = 0;
+	pid_t pid;
+
+	memset(r, 0, sizeof(*r));
+	r->status = -1;
+	if (pipe(out) != 0) {
+		return -1;
+	}
+	if (pipe(err) != 0) {
+		close(out[0]);
+		close(out[1]);
+		return -1;
+	}
+	pid = fork();
+	if (pid == 0) {
+		int null = open("/dev/null", O_RDONLY);
+
+		prctl(PR_SET_PDEATHSIG, SIGKILL);
+		if (null >= 0) {
+			dup2(null, STDIN_FILENO);
+			close(null);
+		}
+		dup2(out[1], STDOUT_FILENO);
+		dup2(err[1], STDERR_FILENO);
+		close(out[0]);
+		close(out[1]);
+		close(err[0]);
+		close(err[1]);
+		execv(argv[0], argv);
+		_exit(127);
+	}
+	close(out[1]);
+	close(err[1]);
+	if (pid < 0) {
+		close(out[0]);
+		close(err[0]);
+		return -1;
+	}
+	while (open_out || open_err) {
+		struct pollfd p[2] = {{out[0], POLLIN, 0}, {err[0], POLLIN, 0}};
+		uint64_t now = wt_clock_ns();
+		int left;
+
+		if (now >= deadline) {
+			kill(pid, SIGKILL);
+			break;
+		}
+		left = (int)((deadline - now) / 1000000ull) + 1;
+		p[0].fd = open_out ? out[0] : -1;
+		p[1].fd = open_err ? err[0] : -1;
+		if (poll(p, 2, left) < 0) {
+			if (errno == EINTR) {
+				continue;
+			}
+			kill(pid, SIGKILL);
+			break;
+		}
+		if (open_out && (p[0].revents & (POLLIN | POLLHUP | POLLERR))) {
+			open_out = drain(out[0], r->out, sizeof(r->out), &n_out);
+		}
+		if (open_err && (p[1].revents & (POLLIN | POLLHUP | POLLERR))) {
+			open_err = drain(err[0], r->err, sizeof(r->err), &n_err);
+		}
+	}
+	close(out[0]);
+	close(err[0]);
+	/* Both pipes closed: the program is exiting (or was killed above). */
+	while (waitpid(pid, &status, WNOHANG) != pid) {
+		if (wt_clock_ns() > deadline) {
+			kill(pid, SIGKILL);
+			while (waitpid(pid, &status, 0) < 0 && errno == EINTR) {
+			}
+			break;
+		}
+		sleep_ms(2);
+	}
+	r->elapsed_ms = (int)((wt_clock_ns() - start) / 1000000ull);
+	r->status = WIFEXITED(status) ? WEXITSTATUS(status) : -1;
+	return 0;
 }

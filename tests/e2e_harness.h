@@ -23,6 +23,11 @@ typedef struct e2e {
 	char control[256];   /**< daemon control endpoint */
 	char telemetry[256]; /**< daemon telemetry endpoint */
 	char truth[256];     /**< simulator truth endpoint */
+	char frames[256];    /**< driver.frames the simulator binds */
+	char commands[256];  /**< driver.commands the simulator binds */
+	char daemon_ini[192];	   /**< the daemon's INI (e2e_setup_split) */
+	char daemon_frames[256];   /**< driver.frames the daemon connects to */
+	char daemon_commands[256]; /**< driver.commands the daemon connects to */
 	pid_t sim;
 	pid_t daemon;
 	void *ctx;
@@ -37,10 +42,21 @@ typedef struct e2e {
  */
 int e2e_setup(e2e *e, const char *const *overrides);
 
+/**
+ * As e2e_setup(), but the daemon gets an INI of its own (e->daemon_ini, the
+ * same scenario and overrides) whose driver.frames and driver.commands are
+ * e->daemon_frames and e->daemon_commands, other ipc endpoints in the same
+ * folder than the simulator's e->frames and e->commands: the test puts
+ * something between the two (a proxy that binds the daemon's pair and
+ * connects to the simulator's).
+ */
+int e2e_setup_split(e2e *e, const char *const *overrides);
+
 /** Start wavetrim-sim (waits until its truth stream flows). */
 int e2e_start_sim(e2e *e);
 
-/** Start wavetrimd (waits until it answers `ping`), extra args may be NULL. */
+/** Start wavetrimd (waits until it answers `ping`), extra args may be NULL.
+ * It reads e->daemon_ini when e2e_setup_split() wrote one, else e->ini. */
 int e2e_start_daemon(e2e *e, const char *const *extra_args);
 
 /** SIGKILL the simulator and reap it. */
@@ -79,5 +95,21 @@ int e2e_truth_skip(e2e *e, int n, sim_truth *t, int timeout_ms);
 /** `shutdown` the daemon, SIGTERM the sim, reap both (exit statuses are
  * returned in *daemon_status, *sim_status when not NULL), remove the folder. */
 void e2e_teardown(e2e *e, int *daemon_status, int *sim_status);
+
+/** What a program run by e2e_run() printed, and how it ended. */
+typedef struct e2e_run_result {
+	int status;	/**< exit status; -1: killed by a signal or the timeout */
+	int elapsed_ms; /**< from start to exit */
+	char out[16384]; /**< standard output, terminated (cut to fit) */
+	char err[8192];	 /**< standard error, terminated (cut to fit) */
+} e2e_run_result;
+
+/**
+ * Run argv[0] (a path) with argv, standard input from /dev/null, and
+ * collect its standard output and error until it exits; SIGKILL it after
+ * timeout_ms.  Returns 0 when it ran (its ending is in *r), -1 when it
+ * could not be started.
+ */
+int e2e_run(char *const argv[], int timeout_ms, e2e_run_result *r);
 
 #endif /* E2E_HARNESS_H */

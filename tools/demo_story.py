@@ -89,7 +89,7 @@ def main():
     ap.add_argument("-c", "--config", required=True)
     ap.add_argument("--frames", type=int, default=50)
     args = ap.parse_args()
-    ini = configparser.ConfigParser(inline_comment_prefixes=(";",))
+    ini = configparser.ConfigParser(inline_comment_prefixes=(";",), strict=False)
     ini.read(args.config)
     wavelength = float(option(ini, "sensor", "wavelength_nm", "920"))
     rig = Rig(ini)

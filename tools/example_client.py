@@ -14,7 +14,7 @@ import zmq
 
 def endpoints(args):
     ini = configparser.ConfigParser(inline_comment_prefixes=(";",),
-                                    interpolation=None)
+                                    interpolation=None, strict=False)
     if args.config:
         with open(args.config, encoding="utf-8") as f:
             ini.read_file(f)

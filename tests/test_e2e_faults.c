@@ -1,0 +1,896 @@
+/*
+ * test_e2e_faults.c - malformed driver messages end to end: a proxy thread
+ * sits between wavetrim-sim and wavetrimd, forwards every frame and
+ * command, and injects broken frame messages (built with lib/wt_proto.h)
+ * between the real frames.  Judged by the daemon's counters (wt_request.h
+ * section 3), by what the proxy saw come back, and by the simulator's truth.
+ *
+ *   sim  --frames-->  proxy  --frames + injected-->  daemon
+ *   sim  <--commands--  proxy  <--commands--         daemon
+ *
+ * The simulator binds e->frames and e->commands; the proxy connects to them
+ * and binds e->daemon_frames and e->daemon_commands, which the daemon's own
+ * INI names (e2e_setup_split).
+ *
+ * fixture_calibration_* runs first (ctest fixture, see tests/CMakeLists.txt)
+ * and leaves a calibration file for the other cases.
+ */
+#include "wt_test.h"
+
+#include <errno.h>
+#include <math.h>
+#include <pthread.h>
+#include <stdatomic.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <time.h>
+#include <unistd.h>
+
+#include <zmq.h>
+
+#include "e2e_harness.h"
+#include "wt_clock.h"
+#include "wt_proto.h"
+#include "wt_request.h"
+
+#define CAL_FILE WT_BINARY_DIR "/tests/e2e-faults-calibration.h5"
+
+/* Larger than any message of the demo scenario (256 x 256 pixels). */
+#define MSG_MAX	  (WT_PROTO_HEADER_BYTES + 2 * 512 * 512)
+#define ACT_MAX	  1024
+#define SLOPE_MAX 4096
+#define NO_FRAME  UINT64_MAX
+/*
+ * "The loop closed": the true residual at least 5 times below the open-loop
+ * one (measured 8-9 times here).  A sanity bound, not a quality figure:
+ * this file's quick calibration leaves ~55 nm, near Marechal's lambda / 14
+ * (65.7 nm at 920 nm), and test_e2e_loop.c judges correction quality with
+ * the demo's full calibration.  Common practice.
+ */
+#define CLOSED_FACTOR 5.0
+
+/* What the proxy injects; one status counter grows for each. */
+enum inj {
+	INJ_SHORT,	 /* 39 bytes: shorter than the header */
+	INJ_MAGIC,	 /* a real frame with one magic byte changed */
+	INJ_VERSION,	 /* version 2 */
+	INJ_KIND,	 /* kind 9 */
+	INJ_DIMS,	 /* width 0 */
+	INJ_PAYLOAD,	 /* payload_bytes 2 short of width x height x 2 */
+	INJ_LENGTH,	 /* a real frame cut 1000 bytes short */
+	INJ_PIXELS_SIZE, /* well formed, half the sensor's width and height */
+	INJ_SLOPES_SIZE, /* well-formed slopes, two values short */
+	INJ_COMMAND,	 /* a well-formed command sent as a frame */
+	INJ_COUNT
+};
+
+/* The status member that counts each (wt_request.h section 3). */
+static const char *const inj_counter[INJ_COUNT] = {
+	"result.refused.short",		"result.refused.magic",
+	"result.refused.version",	"result.refused.kind",
+	"result.refused.dims",		"result.refused.payload",
+	"result.refused.length",	"result.counts.bad_dimensions",
+	"result.counts.bad_dimensions", "result.counts.wrong_kind",
+};
+
+typedef struct proxy {
+	char sim_frames[256], sim_commands[256];
+	char daemon_frames[256], daemon_commands[256];
+	pthread_t thread;
+	bool running;
+
+	/* set by the test */
+	atomic_int stop;
+	atomic_int paused;	/* take no frame from the simulator */
+	atomic_int n_slopes;	/* the sensor's slope count, 0: unknown */
+	atomic_int inject_left; /* messages still to inject */
+	atomic_int burst;	/* inject this many at once (1: 1 or 2) */
+	atomic_ullong nan_at;	/* replace this frame by non-finite slopes */
+
+	/* set by the proxy */
+	atomic_int ready, failed;
+	atomic_int n_act;	       /* the width of the commands */
+	atomic_ullong frames;	       /* real frames forwarded */
+	atomic_ullong commands;	       /* commands forwarded */
+	atomic_ullong bogus;	       /* commands answering no frame sent */
+	atomic_ullong repeats;	       /* commands answering a frame again */
+	atomic_ullong nonfinite;       /* NaN or infinite command values */
+	atomic_ullong injected;	       /* all injected messages */
+	atomic_ullong kind[INJ_COUNT]; /* by kind */
+	atomic_ullong last_sent;       /* id of the newest real frame */
+	atomic_int captured;	       /* bit 0: cmd_before, bit 1: cmd_nan */
+	float cmd_before[ACT_MAX];     /* the command answering nan_at - 1 */
+	float cmd_nan[ACT_MAX];	       /* ... answering nan_at */
+
+	/* the proxy thread's own */
+	uint8_t *real, *build;
+	size_t real_len;
+	uint64_t last_answered;
+	bool answered_any;
+	unsigned next_kind;
+} proxy;
+
+/* --- the proxy thread ----------------------------------------------------- */
+
+static void *sock(void *ctx, int type, const char *endpoint, bool bind)
+{
+	void *s = zmq_socket(ctx, type);
+	int zero = 0, slice = 50;
+
+	if (!s) {
+		return NULL;
+	}
+	zmq_setsockopt(s, ZMQ_LINGER, &zero, sizeof(zero));
+	zmq_setsockopt(s, ZMQ_SNDTIMEO, &slice, sizeof(slice));
+	if ((bind ? zmq_bind(s, endpoint) : zmq_connect(s, endpoint)) != 0) {
+		zmq_close(s);
+		return NULL;
+	}
+	return s;
+}
+
+/* Blocking send in 50 ms slices, so that a stop request is seen. */
+static int send_all(proxy *p, void *s, const void *data, size_t len)
+{
+	while (!atomic_load(&p->stop)) {
+		if (zmq_send(s, data, len, 0) >= 0) {
+			return 0;
+		}
+		if (zmq_errno() != EAGAIN && zmq_errno() != EINTR) {
+			return -1;
+		}
+	}
+	return -1;
+}
+
+static void put_u16(uint8_t *at, uint16_t v)
+{
+	at[0] = (uint8_t)v;
+	at[1] = (uint8_t)(v >> 8);
+}
+
+static void put_u32(uint8_t *at, uint32_t v)
+{
+	for (int k = 0; k < 4; k++) {
+		at[k] = (uint8_t)(v >> (8 * k));
+	}
+}
+
+static void put_u64(uint8_t *at, uint64_t v)
+{
+	for (int k = 0; k < 8; k++) {
+		at[k] = (uint8_t)(v >> (8 * k));
+	}
+}
+
+/*
+ * One malformed message of kind k into p->build; its length.  Each starts
+ * from the newest real frame and carries a frame id 1000 above it: were
+ * anything in it trusted, the daemon would count 999 dropped frames.
+ */
+static size_t build_bad(proxy *p, enum inj k, const wt_header *real)
+{
+	uint8_t *b = p->build;
+	uint64_t seq = real->sequence + 1000;
+	wt_header h = *real;
+	int n_slopes = atomic_load(&p->n_slopes);
+	int n_act = atomic_load(&p->n_act);
+	size_t len = p->real_len;
+	int rc;
+
+	memcpy(b, p->real, p->real_len);
+	put_u64(b + 8, seq);
+	h.sequence = seq;
+	switch (k) {
+	case INJ_SHORT:
+		return WT_PROTO_HEADER_BYTES - 1;
+	case INJ_MAGIC:
+		b[3] = 'X';
+		return len;
+	case INJ_VERSION:
+		put_u16(b + 4, WT_PROTO_VERSION + 1);
+		return len;
+	case INJ_KIND:
+		put_u16(b + 6, 9);
+		return len;
+	case INJ_DIMS:
+		put_u32(b + 24, 0);
+		put_u32(b + 32, 0);
+		return WT_PROTO_HEADER_BYTES;
+	case INJ_PAYLOAD:
+		put_u32(b + 32, h.payload_bytes - 2);
+		return len - 2;
+	case INJ_LENGTH:
+		return len - 1000;
+	case INJ_PIXELS_SIZE:
+		h.width /= 2;
+		h.height /= 2;
+		h.payload_bytes = 2 * h.width * h.height;
+		rc = wt_proto_encode(&h, p->real + WT_PROTO_HEADER_BYTES, b,
+				     MSG_MAX);
+		return rc > 0 ? (size_t)rc : 0;
+	case INJ_SLOPES_SIZE:
+	case INJ_COMMAND: {
+		float v[SLOPE_MAX];
+		int n = k == INJ_COMMAND ? n_act : n_slopes - 2;
+
+		if (n <= 0 || n > SLOPE_MAX) {
+			return 0;
+		}
+		for (int j = 0; j < n; j++) {
+			v[j] = 0.01f * (float)(j % 7);
+		}
+		h.kind = k == INJ_COMMAND ? WT_KIND_COMMAND_F32
+					  : WT_KIND_SLOPES_F32;
+		h.width = (uint32_t)n;
+		h.height = 1;
+		h.payload_bytes = (uint32_t)(4 * n);
+		rc = wt_proto_encode(&h, v, b, MSG_MAX);
+		return rc > 0 ? (size_t)rc : 0;
+	}
+	case INJ_COUNT:
+		break;
+	}
+	return 0;
+}
+
+/* Frame h (the real one) replaced by slopes that are NaN and +-Inf. */
+static size_t build_nan(proxy *p, const wt_header *real)
+{
+	static const float bad[3] = {NAN, INFINITY, -INFINITY};
+	float v[SLOPE_MAX];
+	int n = atomic_load(&p->n_slopes);
+	wt_header h = *real;
+	int rc;
+
+	if (n <= 0 || n > SLOPE_MAX) {
+		return 0;
+	}
+	for (int j = 0; j < n; j++) {
+		v[j] = bad[j % 3];
+	}
+	h.kind = WT_KIND_SLOPES_F32;
+	h.width = (uint32_t)n;
+	h.height = 1;
+	h.payload_bytes = (uint32_t)(4 * n);
+	rc = wt_proto_encode(&h, v, p->build, MSG_MAX);
+	return rc > 0 ? (size_t)rc : 0;
+}
+
+static int on_frame(proxy *p, void *from_sim, void *to_daemon)
+{
+	int len = zmq_recv(from_sim, p->real, MSG_MAX, 0);
+	wt_header h;
+	int n_inject;
+
+	if (len < 0) {
+		return zmq_errno() == EAGAIN || zmq_errno() == EINTR ? 0 : -1;
+	}
+	if (len > MSG_MAX ||
+	    wt_proto_decode(p->real, (size_t)len, &h, NULL) != 0) {
+		return -1; /* the simulator sends only good frames */
+	}
+	p->real_len = (size_t)len;
+	if (h.sequence == atomic_load(&p->nan_at)) {
+		size_t n = build_nan(p, &h);
+
+		if (n == 0 || send_all(p, to_daemon, p->build, n) != 0) {
+			return -1;
+		}
+	} else if (send_all(p, to_daemon, p->real, p->real_len) != 0) {
+		return -1;
+	}
+	atomic_store(&p->last_sent, h.sequence);
+	atomic_fetch_add(&p->frames, 1);
+	/* Between this frame and the next: 1 or 2 messages, or a burst. */
+	n_inject = atomic_load(&p->burst);
+	if (n_inject <= 1) {
+		n_inject = 1 + (int)(atomic_load(&p->frames) % 2);
+	}
+	for (int k = 0; k < n_inject && atomic_load(&p->inject_left) > 0; k++) {
+		enum inj kind = (enum inj)(p->next_kind % INJ_COUNT);
+		size_t n = build_bad(p, kind, &h);
+
+		if (n == 0 || send_all(p, to_daemon, p->build, n) != 0) {
+			return -1;
+		}
+		p->next_kind++;
+		atomic_fetch_add(&p->kind[kind], 1);
+		atomic_fetch_add(&p->injected, 1);
+		atomic_fetch_sub(&p->inject_left, 1);
+	}
+	return 0;
+}
+
+static int on_command(proxy *p, void *from_daemon, void *to_sim)
+{
+	uint8_t msg[WT_PROTO_HEADER_BYTES + 4 * ACT_MAX];
+	int len = zmq_recv(from_daemon, msg, sizeof(msg), 0);
+	uint64_t nan_at = atomic_load(&p->nan_at);
+	const void *payload;
+	float v[ACT_MAX];
+	wt_header h;
+
+	if (len < 0) {
+		return zmq_errno() == EAGAIN || zmq_errno() == EINTR ? 0 : -1;
+	}
+	if (len > (int)sizeof(msg) ||
+	    wt_proto_decode(msg, (size_t)len, &h, &payload) != 0 ||
+	    h.kind != WT_KIND_COMMAND_F32 || h.width > ACT_MAX) {
+		atomic_fetch_add(&p->bogus, 1);
+		return send_all(p, to_sim, msg, (size_t)len);
+	}
+	atomic_store(&p->n_act, (int)h.width);
+	if (h.sequence > atomic_load(&p->last_sent) ||
+	    (p->answered_any && h.sequence < p->last_answered)) {
+		atomic_fetch_add(&p->bogus, 1);
+	} else if (p->answered_any && h.sequence == p->last_answered) {
+		atomic_fetch_add(&p->repeats, 1);
+	}
+	p->last_answered = h.sequence;
+	p->answered_any = true;
+	memcpy(v, payload, 4 * (size_t)h.width);
+	for (uint32_t j = 0; j < h.width; j++) {
+		if (!isfinite(v[j])) {
+			atomic_fetch_add(&p->nonfinite, 1);
+		}
+	}
+	if (nan_at != NO_FRAME && h.sequence + 1 == nan_at) {
+		memcpy(p->cmd_before, v, 4 * (size_t)h.width);
+		atomic_fetch_or(&p->captured, 1);
+	} else if (nan_at != NO_FRAME && h.sequence == nan_at) {
+		memcpy(p->cmd_nan, v, 4 * (size_t)h.width);
+		atomic_fetch_or(&p->captured, 2);
+	}
+	atomic_fetch_add(&p->commands, 1);
+	return send_all(p, to_sim, msg, (size_t)len);
+}
+
+static void *proxy_main(void *arg)
+{
+	proxy *p = arg;
+	void *ctx = zmq_ctx_new();
+	void *from_sim = sock(ctx, ZMQ_PULL, p->sim_frames, false);
+	void *to_sim = sock(ctx, ZMQ_PUSH, p->sim_commands, false);
+	void *to_daemon = sock(ctx, ZMQ_PUSH, p->daemon_frames, true);
+	void *from_daemon = sock(ctx, ZMQ_PULL, p->daemon_commands, true);
+
+	p->real = malloc(MSG_MAX);
+	p->build = malloc(MSG_MAX);
+	if (!from_sim || !to_sim || !to_daemon || !from_daemon || !p->real ||
+	    !p->build) {
+		atomic_store(&p->failed, 1);
+	}
+	atomic_store(&p->ready, 1);
+	while (!atomic_load(&p->failed) && !atomic_load(&p->stop)) {
+		zmq_pollitem_t it[2] = {{from_daemon, 0, ZMQ_POLLIN, 0},
+					{from_sim, 0, ZMQ_POLLIN, 0}};
+		int n = atomic_load(&p->paused) ? 1 : 2;
+		int rc = zmq_poll(it, n, 20);
+
+		if (rc < 0 && zmq_errno() != EINTR) {
+			atomic_store(&p->failed, 1);
+		}
+		if (rc > 0 && (it[0].revents & ZMQ_POLLIN) &&
+		    on_command(p, from_daemon, to_sim) != 0) {
+			atomic_store(&p->failed, !atomic_load(&p->stop));
+		}
+		if (rc > 0 && n == 2 && (it[1].revents & ZMQ_POLLIN) &&
+		    on_frame(p, from_sim, to_daemon) != 0) {
+			atomic_store(&p->failed, !atomic_load(&p->stop));
+		}
+	}
+	zmq_close(from_sim);
+	zmq_close(to_sim);
+	zmq_close(to_daemon);
+	zmq_close(from_daemon);
+	zmq_ctx_term(ctx);
+	free(p->real);
+	free(p->build);
+	return NULL;
+}
+
+/* --- the proxy, from the test ------------------------------------------- */
+
+static void sleep_ms(int ms)
+{
+	struct timespec ts = {ms / 1000, (long)(ms % 1000) * 1000000L};
+
+	while (nanosleep(&ts, &ts) != 0 && errno == EINTR) {
+	}
+}
+
+/* Start the proxy once the simulator has bound its sockets. */
+static void proxy_start(proxy *p, const e2e *e)
+{
+	memset(p, 0, sizeof(*p));
+	snprintf(p->sim_frames, sizeof(p->sim_frames), "%s", e->frames);
+	snprintf(p->sim_commands, sizeof(p->sim_commands), "%s", e->commands);
+	snprintf(p->daemon_frames, sizeof(p->daemon_frames), "%s",
+		 e->daemon_frames);
+	snprintf(p->daemon_commands, sizeof(p->daemon_commands), "%s",
+		 e->daemon_commands);
+	atomic_store(&p->nan_at, NO_FRAME);
+	assert_int_equal(pthread_create(&p->thread, NULL, proxy_main, p), 0);
+	p->running = true;
+	while (!atomic_load(&p->ready)) {
+		sleep_ms(5);
+	}
+	assert_int_equal(atomic_load(&p->failed), 0);
+}
+
+static void proxy_stop(proxy *p)
+{
+	if (p->running) {
+		atomic_store(&p->stop, 1);
+		pthread_join(p->thread, NULL);
+		p->running = false;
+	}
+}
+
+/* Wait (at most timeout_ms) until cond(p) holds; 0 or -1. */
+static int proxy_wait(proxy *p, int (*cond)(proxy *), int timeout_ms)
+{
+	uint64_t deadline = wt_clock_ns() + (uint64_t)timeout_ms * 1000000ull;
+
+	while (!cond(p)) {
+		if (wt_clock_ns() > deadline || atomic_load(&p->failed)) {
+			return -1;
+		}
+		sleep_ms(2);
+	}
+	return 0;
+}
+
+/* Every frame forwarded has had its command back. */
+static int drained(proxy *p)
+{
+	return atomic_load(&p->commands) == atomic_load(&p->frames);
+}
+
+static int injected_all(proxy *p)
+{
+	return atomic_load(&p->inject_left) == 0;
+}
+
+static int captured_both(proxy *p)
+{
+	return atomic_load(&p->captured) == 3;
+}
+
+/* --- helpers ---------------------------------------------------------- */
+
+/* Simulator, proxy and daemon (through the proxy), calibration loaded. */
+static void start_proxied(e2e *e, proxy *p, const char *const *overrides,
+			  bool load)
+{
+	assert_int_equal(e2e_setup_split(e, overrides), 0);
+	assert_int_equal(e2e_start_sim(e), 0);
+	proxy_start(p, e);
+	assert_int_equal(e2e_start_daemon(e, NULL), 0);
+	if (load) {
+		assert_int_equal(e2e_request(e, "load %s", CAL_FILE), 1);
+	}
+}
+
+static void stop_clean(e2e *e, proxy *p)
+{
+	int ds, ss;
+
+	e2e_teardown(e, &ds, &ss);
+	proxy_stop(p);
+	assert_int_equal(ds, 0);
+	assert_int_equal(ss, 0);
+}
+
+/* Mean truth RMS (piston removed, nm) over n frames. */
+static double mean_rms(e2e *e, int n)
+{
+	sim_truth t;
+	double sum = 0;
+
+	for (int k = 0; k < n; k++) {
+		assert_int_equal(e2e_truth(e, &t, 5000), 0);
+		sum += t.rms_nm;
+	}
+	return sum / n;
+}
+
+/* A SUB socket on the daemon's frame records (e->ctx, closed by the
+ * caller before the teardown). */
+static void *records_sub(e2e *e)
+{
+	void *s = zmq_socket(e->ctx, ZMQ_SUB);
+	int zero = 0;
+
+	assert_non_null(s);
+	zmq_setsockopt(s, ZMQ_LINGER, &zero, sizeof(zero));
+	zmq_setsockopt(s, ZMQ_SUBSCRIBE, WT_FRAME_TOPIC,
+		       strlen(WT_FRAME_TOPIC));
+	assert_int_equal(zmq_connect(s, e->telemetry), 0);
+	return s;
+}
+
+/* The next frame record: header, and its arrays into a (cap floats). */
+static int next_record(void *sub, wt_frame_record *h, float *a, size_t cap,
+		       int timeout_ms)
+{
+	static uint8_t msg[6 + WT_FRAME_HEADER_BYTES + 4 * 4 * SLOPE_MAX];
+	zmq_pollitem_t it = {sub, 0, ZMQ_POLLIN, 0};
+	size_t n_floats;
+	int len;
+
+	if (zmq_poll(&it, 1, timeout_ms) <= 0) {
+		return -1;
+	}
+	len = zmq_recv(sub, msg, sizeof(msg), 0);
+	if (len < 6 + WT_FRAME_HEADER_BYTES || len > (int)sizeof(msg)) {
+		return -1;
+	}
+	memcpy(h, msg + 6, WT_FRAME_HEADER_BYTES);
+	n_floats = ((size_t)len - 6 - WT_FRAME_HEADER_BYTES) / 4;
+	if (n_floats > cap ||
+	    n_floats != 3 * (size_t)h->n_subaps + (size_t)h->n_act) {
+		return -1;
+	}
+	memcpy(a, msg + 6 + WT_FRAME_HEADER_BYTES, 4 * n_floats);
+	return 0;
+}
+
+static double num(e2e *e, const char *path)
+{
+	double v = e2e_reply_number(e, path);
+
+	assert_false(isnan(v));
+	return v;
+}
+
+/* --- the cases ------------------------------------------------------------ */
+
+/*
+ * Calibrate through the proxy (nothing injected) and save the file the
+ * other cases load: a quicker calibration than the demo's (settle 1 is the
+ * loop delay, average 2), enough for a loop to compare with itself.
+ */
+static void fixture_calibration_through_proxy_is_saved(void **state)
+{
+	static const char *const ov[] = {"calibration.settle=1",
+					 "calibration.average=2", NULL};
+	e2e e;
+	proxy p;
+	struct stat st;
+
+	(void)state;
+	unlink(CAL_FILE);
+	start_proxied(&e, &p, ov, false);
+	assert_int_equal(e2e_request(&e, "calibrate"), 1);
+	assert_int_equal(e2e_wait_state(&e, "calibrating", 5000), 0);
+	assert_int_equal(e2e_wait_state(&e, "open", 120000), 0);
+	for (int k = 0; k < 200; k++) {
+		assert_int_equal(e2e_request(&e, "status"), 1);
+		if (e2e_reply_number(&e, "result.modes") > 0) {
+			break;
+		}
+		usleep(50000);
+	}
+	assert_true(num(&e, "result.modes") > 0);
+	assert_int_equal(e2e_request(&e, "save %s", CAL_FILE), 1);
+	assert_int_equal(stat(CAL_FILE, &st), 0);
+	assert_true(st.st_size > 0);
+	assert_int_equal(atomic_load(&p.bogus), 0);
+	assert_int_equal(atomic_load(&p.failed), 0);
+	stop_clean(&e, &p);
+}
+
+/*
+ * Three of each of ten malformed messages, one or two between real frames,
+ * while the loop closes: each is counted under its own reason and nothing
+ * else moves (no frame dropped, no stale frame, no fault); no malformed
+ * message is answered (one command per real frame, each answering a real
+ * frame once, in order; the simulator refused none); and the true residual
+ * is the one the same loop reached without injection, within 10% (the
+ * closed loop is fed only the real frames, so it converges the same way -
+ * common practice: validation drops the message before any state is
+ * touched).
+ */
+static void malformed_frames_counted_by_reason_loop_unaffected(void **st)
+{
+	static const char *const ov[] = {"control.gain=0.5", "control.leak=0",
+					 NULL};
+	const int rounds = 3;
+	e2e e;
+	proxy p;
+	sim_truth t;
+	void *rec;
+	wt_frame_record h;
+	static float a[4 * SLOPE_MAX];
+	double before[INJ_COUNT], rms_a, rms_b, open_rms;
+	double answered;
+
+	(void)st;
+	start_proxied(&e, &p, ov, true);
+	/* The sensor's size, for the slope messages, from a frame record. */
+	rec = records_sub(&e);
+	assert_int_equal(next_record(rec, &h, a, 4 * SLOPE_MAX, 5000), 0);
+	zmq_close(rec);
+	atomic_store(&p.n_slopes, 2 * (int)h.n_subaps);
+
+	/* The loop alone, through the proxy. */
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	open_rms = mean_rms(&e, 3);
+	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	assert_int_equal(e2e_truth_skip(&e, 50, &t, 5000), 0);
+	rms_a = mean_rms(&e, 20);
+	assert_int_equal(e2e_request(&e, "open"), 1);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	assert_int_equal(e2e_truth_skip(&e, 3, &t, 5000), 0);
+	/* Back at the flat: the open-loop residual again. */
+	assert_true(fabs(t.rms_nm - open_rms) < 0.05 * open_rms);
+
+	assert_int_equal(e2e_request(&e, "status"), 1);
+	for (int k = 0; k < INJ_COUNT; k++) {
+		before[k] = num(&e, inj_counter[k]);
+		assert_true(before[k] == 0);
+	}
+
+	/* The same loop again, with the messages injected meanwhile. */
+	assert_int_equal(e2e_request(&e, "close"), 1);
+	atomic_store(&p.inject_left, rounds * INJ_COUNT);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	assert_int_equal(e2e_truth_skip(&e, 50, &t, 5000), 0);
+	assert_int_equal(proxy_wait(&p, injected_all, 5000), 0);
+	rms_b = mean_rms(&e, 20);
+	print_message("open %.1f nm; closed %.2f nm alone, %.2f nm with %llu "
+		      "malformed messages\n",
+		      open_rms, rms_a, rms_b,
+		      (unsigned long long)atomic_load(&p.injected));
+
+	/* Take no more frames: once every one is answered, the counts hold
+	 * still for the status read. */
+	atomic_store(&p.paused, 1);
+	assert_int_equal(proxy_wait(&p, drained, 2000), 0);
+	sleep_ms(20);
+	assert_int_equal(e2e_request(&e, "status"), 1);
+	atomic_store(&p.paused, 0);
+
+	for (int k = 0; k < INJ_COUNT; k++) {
+		assert_int_equal(atomic_load(&p.kind[k]), rounds);
+	}
+	assert_true(num(&e, "result.refused.short") == rounds);
+	assert_true(num(&e, "result.refused.magic") == rounds);
+	assert_true(num(&e, "result.refused.version") == rounds);
+	assert_true(num(&e, "result.refused.kind") == rounds);
+	assert_true(num(&e, "result.refused.dims") == rounds);
+	assert_true(num(&e, "result.refused.payload") == rounds);
+	assert_true(num(&e, "result.refused.length") == rounds);
+	assert_true(num(&e, "result.counts.refused") == 7 * rounds);
+	assert_true(num(&e, "result.counts.bad_dimensions") == 2 * rounds);
+	assert_true(num(&e, "result.counts.wrong_kind") == rounds);
+	/* Nothing in them was trusted: their ids (1000 ahead) made no gap. */
+	assert_true(num(&e, "result.counts.dropped") == 0);
+	assert_true(num(&e, "result.counts.stale") == 0);
+	assert_true(num(&e, "result.counts.faults") == 0);
+	assert_true(num(&e, "result.counts.rejected_updates") == 0);
+	/* Every message was received; only the real frames were answered. */
+	answered = num(&e, "result.frames");
+	assert_true(num(&e, "result.counts.received") ==
+		    (double)atomic_load(&p.frames) +
+			    (double)atomic_load(&p.injected));
+	assert_true(answered == (double)atomic_load(&p.frames));
+	assert_true(answered == (double)atomic_load(&p.commands));
+	assert_int_equal(atomic_load(&p.bogus), 0);
+	assert_int_equal(atomic_load(&p.repeats), 0);
+	assert_int_equal(atomic_load(&p.nonfinite), 0);
+
+	/* The simulator refused no command and waited for none. */
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	assert_int_equal(e2e_truth(&e, &t, 5000), 0);
+	assert_int_equal(t.refused, 0);
+	assert_int_equal(t.stale, 0);
+	assert_int_equal(t.timeouts, 0);
+
+	assert_true(rms_a < open_rms / CLOSED_FACTOR);
+	assert_true(fabs(rms_b - rms_a) < 0.1 * rms_a);
+	assert_int_equal(atomic_load(&p.failed), 0);
+	stop_clean(&e, &p);
+}
+
+/*
+ * A frame of the right size whose slopes are all NaN or +-Inf, in the
+ * middle of a converging loop (gain 0.2, no leak): the daemon takes it as
+ * slopes with every subaperture invalid (zero slope: DESIGN.md, per-frame
+ * pipeline step 2), so the residual is zero, the integrator update is not
+ * rejected, and the command answering it is finite and bit for bit the one
+ * before (c <- (1 - 0) c - g R 0: an integrator holds on zero input, common
+ * practice).  The simulator's truth agrees: the mirror did not move, and
+ * the loop converges on after it.
+ */
+static void nan_slopes_frame_leaves_command_unchanged_and_finite(void **st)
+{
+	static const char *const ov[] = {"control.gain=0.2", "control.leak=0",
+					 "daemon.frame_decimation=1", NULL};
+	e2e e;
+	proxy p;
+	sim_truth t, t_before = {0}, t_prev = {0}, t_nan = {0}, t_next = {0};
+	static float a[4 * SLOPE_MAX];
+	wt_frame_record h;
+	void *rec;
+	uint64_t nan_at;
+	int n_act, n_subaps, found = 0;
+	double open_rms, rms_late;
+
+	(void)st;
+	start_proxied(&e, &p, ov, true);
+	rec = records_sub(&e);
+	assert_int_equal(next_record(rec, &h, a, 4 * SLOPE_MAX, 5000), 0);
+	n_subaps = (int)h.n_subaps;
+	atomic_store(&p.n_slopes, 2 * n_subaps);
+
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	open_rms = mean_rms(&e, 3);
+	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	assert_int_equal(e2e_truth_skip(&e, 4, &t, 5000), 0);
+	nan_at = atomic_load(&p.last_sent) + 4;
+	atomic_store(&p.nan_at, nan_at);
+	assert_int_equal(proxy_wait(&p, captured_both, 5000), 0);
+	n_act = atomic_load(&p.n_act);
+	assert_true(n_act > 0);
+
+	/* The commands answering nan_at - 1 and nan_at: equal, finite. */
+	for (int j = 0; j < n_act; j++) {
+		assert_true(isfinite(p.cmd_nan[j]));
+		assert_true(p.cmd_nan[j] >= -1 && p.cmd_nan[j] <= 1);
+	}
+	assert_memory_equal(p.cmd_nan, p.cmd_before, 4 * (size_t)n_act);
+
+	/* The daemon's record of that frame. */
+	do {
+		assert_int_equal(next_record(rec, &h, a, 4 * SLOPE_MAX, 5000),
+				 0);
+	} while (h.frame_id < nan_at);
+	zmq_close(rec);
+	assert_true(h.frame_id == nan_at);
+	assert_true(h.flags & WT_FRAME_SLOPES_IN);
+	assert_false(h.flags & WT_FRAME_REJECTED);
+	assert_int_equal(h.n_invalid, n_subaps);
+	for (int k = 0; k < 2 * n_subaps; k++) {
+		assert_true(a[k] == 0); /* residual: invalid means zero */
+	}
+	assert_memory_equal(a + 3 * n_subaps, p.cmd_nan, 4 * (size_t)n_act);
+
+	/* Truth: frame m shows the command answering m - 1 (sim.delay 1). */
+	while (!found) {
+		assert_int_equal(e2e_truth(&e, &t, 5000), 0);
+		if (t.frame + 1 == nan_at) {
+			t_before = t;
+		} else if (t.frame == nan_at) {
+			t_prev = t;
+		} else if (t.frame == nan_at + 1) {
+			t_nan = t;
+		} else if (t.frame == nan_at + 2) {
+			t_next = t;
+			found = 1;
+		}
+	}
+	print_message("truth: %.3f, %.3f nm (before), %.3f nm (with the NaN "
+		      "frame's command), %.3f nm (next)\n",
+		      t_before.rms_nm, t_prev.rms_nm, t_nan.rms_nm,
+		      t_next.rms_nm);
+	assert_int_equal(t_before.command, (int64_t)nan_at - 2);
+	assert_int_equal(t_prev.command, (int64_t)nan_at - 1);
+	assert_int_equal(t_nan.command, (int64_t)nan_at);
+	/* The loop was still moving, stood still for one frame, moved on. */
+	assert_true(t_prev.rms_nm < 0.97 * t_before.rms_nm);
+	assert_true(t_next.rms_nm < 0.97 * t_nan.rms_nm);
+	assert_true(t_nan.rms_nm == t_prev.rms_nm);
+	assert_int_equal(t_next.refused, 0);
+
+	assert_int_equal(e2e_truth_skip(&e, 60, &t, 5000), 0);
+	rms_late = mean_rms(&e, 5);
+	assert_true(rms_late < open_rms / CLOSED_FACTOR);
+	assert_int_equal(e2e_request(&e, "status"), 1);
+	assert_true(num(&e, "result.counts.rejected_updates") == 0);
+	assert_true(num(&e, "result.counts.refused") == 0);
+	assert_true(num(&e, "result.counts.bad_dimensions") == 0);
+	assert_int_equal(atomic_load(&p.nonfinite), 0);
+	assert_int_equal(atomic_load(&p.bogus), 0);
+	stop_clean(&e, &p);
+}
+
+/*
+ * safety.max_bad_frames (10 in the demo) consecutive bad messages put the
+ * loop in fault "bad frames", one fewer does not (wt_request.h, loop
+ * states).  In fault the safe command (the flat) answers every frame, so
+ * the true residual goes back to the open-loop one; the command sent at
+ * once on entry answers the newest frame a second time, which the
+ * simulator drops as stale (sim_driver.h).  `close` then corrects again.
+ */
+static void max_bad_frames_in_a_row_fault_one_fewer_do_not(void **st)
+{
+	static const char *const ov[] = {"control.gain=0.5", "control.leak=0",
+					 "safety.max_bad_frames=10", NULL};
+	e2e e;
+	proxy p;
+	sim_truth t;
+	void *rec;
+	wt_frame_record h;
+	static float a[4 * SLOPE_MAX];
+	char buf[64];
+	double open_rms, closed_rms, fault_rms, again_rms;
+
+	(void)st;
+	start_proxied(&e, &p, ov, true);
+	rec = records_sub(&e);
+	assert_int_equal(next_record(rec, &h, a, 4 * SLOPE_MAX, 5000), 0);
+	zmq_close(rec);
+	atomic_store(&p.n_slopes, 2 * (int)h.n_subaps);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	open_rms = mean_rms(&e, 3);
+	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	assert_int_equal(e2e_truth_skip(&e, 30, &t, 5000), 0);
+	closed_rms = mean_rms(&e, 3);
+
+	/* Nine in a row: counted, no fault. */
+	atomic_store(&p.burst, 9);
+	atomic_store(&p.inject_left, 9);
+	assert_int_equal(proxy_wait(&p, injected_all, 5000), 0);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	assert_int_equal(e2e_truth(&e, &t, 5000), 0);
+	assert_int_equal(e2e_request(&e, "status"), 1);
+	assert_int_equal(e2e_reply_string(&e, "result.state", buf, sizeof(buf)),
+			 0);
+	assert_string_equal(buf, "closed");
+	assert_true(num(&e, "result.counts.faults") == 0);
+	assert_true(num(&e, "result.counts.refused") +
+			    num(&e, "result.counts.bad_dimensions") +
+			    num(&e, "result.counts.wrong_kind") ==
+		    9);
+
+	/* Ten in a row: fault, mirror to the flat. */
+	atomic_store(&p.burst, 10);
+	atomic_store(&p.inject_left, 10);
+	assert_int_equal(proxy_wait(&p, injected_all, 5000), 0);
+	assert_int_equal(e2e_wait_state(&e, "fault", 2000), 0);
+	assert_int_equal(e2e_reply_string(&e, "result.fault", buf, sizeof(buf)),
+			 0);
+	assert_string_equal(buf, "bad frames");
+	assert_true(num(&e, "result.counts.faults") == 1);
+	assert_true(num(&e, "result.counts.refused") +
+			    num(&e, "result.counts.bad_dimensions") +
+			    num(&e, "result.counts.wrong_kind") ==
+		    19);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	assert_int_equal(e2e_truth_skip(&e, 2, &t, 5000), 0);
+	fault_rms = mean_rms(&e, 3);
+	assert_int_equal(e2e_truth(&e, &t, 5000), 0);
+	assert_int_equal(t.refused, 0);
+	assert_int_equal(t.stale, 1);
+	assert_int_equal(atomic_load(&p.repeats), 1);
+
+	/* Out of the fault by request. */
+	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	assert_int_equal(e2e_truth_skip(&e, 30, &t, 5000), 0);
+	again_rms = mean_rms(&e, 3);
+	print_message("open %.1f nm, closed %.2f nm, fault %.1f nm, closed "
+		      "again %.2f nm\n",
+		      open_rms, closed_rms, fault_rms, again_rms);
+	assert_true(closed_rms < open_rms / CLOSED_FACTOR);
+	assert_true(fabs(fault_rms - open_rms) < 0.05 * open_rms);
+	assert_true(again_rms < open_rms / CLOSED_FACTOR);
+	assert_int_equal(atomic_load(&p.bogus), 0);
+	assert_int_equal(atomic_load(&p.nonfinite), 0);
+	stop_clean(&e, &p);
+}
+
+static const struct CMUnitTest tests[] = {
+	cmocka_unit_test(fixture_calibration_through_proxy_is_saved),
+	cmocka_unit_test(malformed_frames_counted_by_reason_loop_unaffected),
+	cmocka_unit_test(nan_slopes_frame_leaves_command_unchanged_and_finite),
+	cmocka_unit_test(max_bad_frames_in_a_row_fault_one_fewer_do_not),
+};
+
+WT_TEST_MAIN(tests)
