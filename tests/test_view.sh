@@ -1,27 +1,36 @@
 #!/usr/bin/env bash
-# Browser test of wavetrim-view: the server fed by a stand-in publisher
-# (tools/view/standin.py: status, event and frame messages in the formats of
-# lib/wt_request.h, truth records of sim/sim_driver.h), the page loaded in
-# Debian's headless Chromium over the DevTools protocol.  Checks: the page
-# loads with no console error or exception, the history grows, the frame
-# panels get data, the Close button and the gain field reach the "daemon"
-# through the server, the server refuses words the page may not send, a
-# cross-site POST and a foreign Host header, and the snapshots decode.
-# Saves a screenshot of the page.
+# Browser test of wavetrim-view against the real simulator and daemon:
+# wavetrim-sim and wavetrimd run the demo scenario (config/demo.ini, with
+# private ipc endpoints, geometric spots and short calibration averages for
+# speed), a calibration is loaded (the e2e fixture's file when it exists,
+# else measured), and the page is loaded in Debian's headless Chromium over
+# the DevTools protocol.  Checks: the page loads with no console error or
+# exception, the history grows, the frame panels get data, the Close button
+# closes the daemon's loop (state badge and `status`), the gain field reaches
+# the daemon (`get control.gain`), the residual shown drops after close, the
+# server refuses words the page may not send (and the daemon keeps running),
+# a cross-site POST and a foreign Host header, and the snapshots decode.
+# Saves a screenshot of the page with the loop closed (OUTPUT_DIR/
+# view_screenshot.png).
 #
 # usage: test_view.sh VIEW_BINARY [SOURCE_DIR] [OUTPUT_DIR]
-# Exit 77 (skipped) when chromium or python3-websocket is missing.
+# OUTPUT_DIR is the tests binary dir; the simulator, daemon and CLI are taken
+# from beside it (OUTPUT_DIR/../sim, ../daemon, ../tools).
+# Exit 77 (skipped) when chromium, python3-websocket or a binary is missing.
 set -euo pipefail
 
 view=$1
 src=${2:-$(cd "$(dirname "${BASH_SOURCE[0]}")/.." && pwd)}
 out=${3:-$PWD}
+sim=$out/../sim/wavetrim-sim
+daemon=$out/../daemon/wavetrimd
+cli=$out/../tools/wavetrim
 py=/usr/bin/python3
 chromium=/usr/bin/chromium
 
-for need in "$view" "$py" "$chromium"; do
+for need in "$view" "$sim" "$daemon" "$cli" "$py" "$chromium"; do
 	if [ ! -x "$need" ]; then
-		echo "test_view: skipped: $need not found (apt-get install chromium)"
+		echo "test_view: skipped: $need not found (build it; apt-get install chromium)"
 		exit 77
 	fi
 done
@@ -30,12 +39,23 @@ if ! "$py" -c 'import websocket, zmq' 2>/dev/null; then
 	exit 77
 fi
 
+# mktemp -d makes the folder 0700: the ipc endpoints stay private.
 tmp=$(mktemp -d)
+ini=$tmp/demo.ini
 pids=()
+daemon_pid=""
+chromium_pid=""
 cleanup() {
+	if [ -n "$daemon_pid" ]; then
+		"$cli" -c "$ini" --timeout 2000 shutdown >/dev/null 2>&1 || true
+	fi
 	for p in "${pids[@]}"; do
 		kill "$p" 2>/dev/null || true
 	done
+	# Chromium's helper processes share its session's process group.
+	if [ -n "$chromium_pid" ]; then
+		kill -- -"$chromium_pid" 2>/dev/null || true
+	fi
 	for p in "${pids[@]}"; do
 		wait "$p" 2>/dev/null || true
 	done
@@ -49,45 +69,64 @@ free_port() {
 port=$(free_port)
 devtools=$(free_port)
 
-cat >"$tmp/view.ini" <<EOF
-[sensor]
-focal_length_mm = 2.0
-min_flux = 500
-[daemon]
-control = ipc://$tmp/control
-telemetry = ipc://$tmp/telemetry
-[sim]
-truth = ipc://$tmp/truth
-EOF
+# The demo scenario with this test's endpoints; geometric spots and two
+# frames per poke so that a calibration, when one is needed, takes seconds.
+sed -e "s|^frames *=.*|frames = ipc://$tmp/frames|" \
+	-e "s|^commands *=.*|commands = ipc://$tmp/commands|" \
+	-e "s|^control *=.*|control = ipc://$tmp/control|" \
+	-e "s|^telemetry *=.*|telemetry = ipc://$tmp/telemetry|" \
+	-e "s|^truth *=.*|truth = ipc://$tmp/truth|" \
+	-e "s|^spot_model *=.*|spot_model = geometric|" \
+	-e "s|^average *=.*|average = 2|" \
+	"$src/config/demo.ini" >"$ini"
+for key in frames commands control telemetry truth; do
+	if ! grep -q "^$key = ipc://$tmp/$key\$" "$ini"; then
+		echo "test_view: FAIL: config/demo.ini has no '$key =' line to replace"
+		exit 1
+	fi
+done
 
-"$view" -c "$tmp/view.ini" --listen "127.0.0.1:$port" >"$tmp/view.log" 2>&1 &
+"$sim" -c "$ini" >"$tmp/sim.log" 2>&1 &
 pids+=($!)
-"$py" "$src/tools/view/standin.py" -c "$tmp/view.ini" \
-	--setup "http://127.0.0.1:$port/api/setup" --seconds 120 \
-	--log "$tmp/requests.log" >"$tmp/standin.log" 2>&1 &
+"$daemon" -c "$ini" >"$tmp/daemon.log" 2>&1 &
+daemon_pid=$!
 pids+=($!)
-"$chromium" --headless --no-sandbox --disable-gpu --disable-quic \
+"$view" -c "$ini" --listen "127.0.0.1:$port" >"$tmp/view.log" 2>&1 &
+pids+=($!)
+setsid "$chromium" --headless --no-sandbox --disable-gpu --disable-quic \
 	--no-first-run --disable-background-networking \
 	--disable-component-update --disable-sync \
 	--user-data-dir="$tmp/chromium" --remote-debugging-address=127.0.0.1 \
 	--remote-debugging-port="$devtools" --remote-allow-origins='*' \
 	--window-size=1400,1000 about:blank >"$tmp/chromium.log" 2>&1 &
+chromium_pid=$!
 pids+=($!)
 
 rc=0
-"$py" - "$port" "$devtools" "$tmp/requests.log" "$out/view_screenshot.png" <<'EOF' || rc=$?
-import base64, json, sys, time, urllib.error, urllib.request
+"$py" - "$port" "$devtools" "$cli" "$ini" "$out/e2e-demo-calibration.h5" \
+	"$out/view_screenshot.png" <<'EOF' || rc=$?
+import base64, json, os, subprocess, sys, time, urllib.error, urllib.request
 import xml.etree.ElementTree as ET
 import websocket
 
-port, devtools, reqlog, shot = sys.argv[1], sys.argv[2], sys.argv[3], sys.argv[4]
+port, devtools, cli, ini, calfile, shot = sys.argv[1:7]
 base = "http://127.0.0.1:%s" % port
 failures = []
 passed = []
 
 def check(cond, what):
-    print(("ok   " if cond else "FAIL ") + what)
+    print(("ok   " if cond else "FAIL ") + what, flush=True)
     (passed if cond else failures).append(what)
+
+def ask(*words):
+    """One request through the built CLI; the daemon's result or None."""
+    r = subprocess.run([cli, "-c", ini, "--json"] + list(words),
+                       capture_output=True, text=True, timeout=20)
+    try:
+        reply = json.loads(r.stdout)
+    except ValueError:
+        return None
+    return reply.get("result") if reply.get("ok") else None
 
 def http(path, data=None, headers=None):
     req = urllib.request.Request(base + path, data=data, headers=headers or {})
@@ -97,7 +136,44 @@ def http(path, data=None, headers=None):
     except urllib.error.HTTPError as e:
         return e.code, e.read()
 
-# The server is up and the stand-in publishes.
+def shown_rms():
+    """The residual slopes RMS the page shows, in px (None if none yet)."""
+    text = js("document.getElementById('s-rms').textContent") or ""
+    try:
+        return float(text.split()[0])
+    except (ValueError, IndexError):
+        return None
+
+# The daemon answers, with frames from the simulator.
+status = None
+for _ in range(100):
+    status = ask("status")
+    if status and status.get("frames"):
+        break
+    time.sleep(0.1)
+check(status is not None and status.get("state") == "open",
+      "wavetrimd answers, loop open (%s)" %
+      (status and status.get("state")))
+if status is None:
+    sys.exit(1)
+
+# A calibration, so that the page's Close can close the loop.
+if os.path.exists(calfile):
+    how = "loaded %s" % os.path.basename(calfile)
+    ok = ask("load", calfile) is not None
+else:
+    how = "measured"
+    ok = ask("calibrate") is not None
+end = time.monotonic() + 40
+while ok and time.monotonic() < end:
+    status = ask("status") or {}
+    if status.get("state") == "open" and (status.get("modes") or 0) > 0:
+        break
+    time.sleep(0.2)
+check(ok and status.get("state") == "open" and (status.get("modes") or 0) > 0,
+      "calibration %s: %s modes" % (how, status.get("modes")))
+
+# The server is up.
 for _ in range(100):
     try:
         if http("/")[0] == 200:
@@ -180,6 +256,9 @@ check(t2 is not None and t1 is not None and t2 > t1 >= 1,
 check(h2 is not None and h1 is not None and h2 > h1 > 0,
       "history grows (%s then %s points)" % (h1, h2))
 check(js("window.wtview.hasFrame()") is True, "a frame record reached the page")
+badge = js("document.getElementById('state').textContent")
+check(badge == "open", "state badge shows open (%r)" % badge)
+rms_open = shown_rms()
 
 # Controls go through the server to the daemon's control socket.
 js("document.querySelector('[data-request=close]').click()")
@@ -187,18 +266,23 @@ pump(1.5)
 reply = js("document.getElementById('reply').textContent")
 check(reply is not None and reply.startswith("close: ok"),
       "Close answered: %r" % reply)
+state = (ask("status") or {}).get("state")
+check(state == "closed", "the daemon's status says closed (%r)" % state)
 js("document.getElementById('gain').value = '0.35';"
    "document.getElementById('set-gain').click()")
 pump(1.5)
-with open(reqlog) as f:
-    lines = [l.strip() for l in f]
-check("close" in lines, "the daemon received 'close'")
-check("set control.gain 0.35" in lines, "the daemon received the gain")
+gain = (ask("get", "control.gain") or {}).get("value")
+check(gain == 0.35, "the gain reached the daemon (get control.gain: %r)" % gain)
 pump(3)
 badge = js("document.getElementById('state').textContent")
 check(badge == "closed", "state badge shows closed (%r)" % badge)
+rms_closed = shown_rms()
+check(rms_open is not None and rms_closed is not None and
+      rms_closed < 0.5 * rms_open,
+      "residual shown drops after close (%s px then %s px)" %
+      (rms_open, rms_closed))
 
-# The server's own checks.
+# The server's own checks; the daemon must come through them untouched.
 code, body = http("/api/control", b"shutdown", {"X-Wavetrim-View": "1"})
 check(code == 403 and b"not allowed" in body, "shutdown refused (%d)" % code)
 code, _ = http("/api/control", b"set control.gain 1; shutdown",
@@ -208,8 +292,11 @@ code, _ = http("/api/control", b"open")
 check(code == 403, "a POST without X-Wavetrim-View refused (%d)" % code)
 code, _ = http("/", headers={"Host": "attacker.example:%s" % port})
 check(code == 403, "a foreign Host header refused (%d)" % code)
-check("shutdown" not in lines and "set control.gain 1; shutdown" not in lines,
-      "refused words never reached the daemon")
+status = ask("status") or {}
+gain = (ask("get", "control.gain") or {}).get("value")
+check(status.get("state") == "closed" and gain == 0.35,
+      "refused words never reached the daemon (still %r, gain %r)" %
+      (status.get("state"), gain))
 code, png = http("/snapshot.png")
 check(code == 200 and png[:8] == b"\x89PNG\r\n\x1a\n", "snapshot.png is a PNG")
 code, svg = http("/snapshot.svg")
@@ -220,7 +307,7 @@ except ET.ParseError:
     ok = False
 check(code == 200 and ok, "snapshot.svg is well-formed SVG")
 
-# Screenshot of the whole page.
+# Screenshot of the whole page, loop closed.
 height = js("Math.ceil(document.documentElement.scrollHeight)") or 1000
 call("Emulation.setDeviceMetricsOverride", width=1400, height=int(height),
      deviceScaleFactor=1, mobile=False)
@@ -238,7 +325,8 @@ print("%d passed, %d failed" % (len(passed), len(failures)))
 sys.exit(1 if failures else 0)
 EOF
 if [ "$rc" -ne 0 ]; then
-	echo "--- view.log"; cat "$tmp/view.log"
-	echo "--- standin.log"; cat "$tmp/standin.log"
+	for f in sim daemon view; do
+		echo "--- $f.log"; tail -n 30 "$tmp/$f.log"
+	done
 fi
 exit "$rc"
