@@ -20,6 +20,7 @@
 
 #include "wt_config.h"
 #include "wt_draw.h"
+#include "wt_json.h"
 
 /* Events kept for streams that fall behind (and for new ones). */
 #define VIEW_EVENTS 32
@@ -32,6 +33,10 @@ struct view_text {
 	char *buf;
 	size_t len, cap;
 };
+
+/* Build JSON with fn(j, arg) into t, growing the buffer until it fits. */
+int view_text_build(struct view_text *t, size_t guess,
+		    void (*fn)(wt_json *j, const void *arg), const void *arg);
 
 struct view {
 	/* Set before the HTTP server starts, read-only afterwards. */

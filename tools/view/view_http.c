@@ -221,39 +221,10 @@ static enum MHD_Result serve_asset(struct view *v, struct MHD_Connection *con,
 /* --- JSON answers
  * ------------------------------------------------------------- */
 
-static int json_into(struct view_text *t, size_t cap,
-		     void (*fn)(wt_json *j, const wt_draw_info *in),
-		     const wt_draw_info *in)
+static void history_json(wt_json *j, const void *arg)
 {
-	for (;;) {
-		wt_json j;
-		int n;
+	const wt_draw_info *in = arg;
 
-		if (cap > t->cap) {
-			char *p = realloc(t->buf, cap);
-
-			if (!p) {
-				return -ENOMEM;
-			}
-			t->buf = p;
-			t->cap = cap;
-		}
-		wt_json_init(&j, t->buf, t->cap);
-		fn(&j, in);
-		n = wt_json_finish(&j);
-		if (n >= 0) {
-			t->len = (size_t)n;
-			return 0;
-		}
-		if (n != -ENOSPC) {
-			return n;
-		}
-		cap *= 2;
-	}
-}
-
-static void history_json(wt_json *j, const wt_draw_info *in)
-{
 	wt_json_object_begin(j);
 	wt_json_key(j, "hist_n");
 	wt_json_int(j, in->n_hist);
@@ -274,8 +245,10 @@ static void history_json(wt_json *j, const wt_draw_info *in)
 	wt_json_object_end(j);
 }
 
-static void calibration_json(wt_json *j, const wt_draw_info *in)
+static void calibration_json(wt_json *j, const void *arg)
 {
+	const wt_draw_info *in = arg;
+
 	wt_json_object_begin(j);
 	wt_json_key(j, "singular_values");
 	wt_json_double_array(j, in->sv, (size_t)in->n_sv, 5);
@@ -289,14 +262,13 @@ static void calibration_json(wt_json *j, const wt_draw_info *in)
 }
 
 static enum MHD_Result serve_json(struct view *v, struct MHD_Connection *con,
-				  void (*fn)(wt_json *j,
-					     const wt_draw_info *in))
+				  void (*fn)(wt_json *j, const void *arg))
 {
 	struct view_text t = {0};
 	int rc;
 
 	pthread_mutex_lock(&v->lock);
-	rc = json_into(&t, 65536, fn, wt_draw_scene_info(v->scene));
+	rc = view_text_build(&t, 65536, fn, wt_draw_scene_info(v->scene));
 	pthread_mutex_unlock(&v->lock);
 	if (rc < 0) {
 		view_text_free(&t);
@@ -375,8 +347,8 @@ static void compose(struct stream *s)
 
 		s->hello = true;
 		text_puts(&s->out, "retry: 2000\n");
-		if (json_into(&h, 65536, history_json,
-			      wt_draw_scene_info(v->scene)) == 0) {
+		if (view_text_build(&h, 65536, history_json,
+				    wt_draw_scene_info(v->scene)) == 0) {
 			sse(&s->out, "hello", h.buf, h.len);
 		}
 		view_text_free(&h);

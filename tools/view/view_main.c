@@ -156,9 +156,8 @@ static int parse_listen(const char *s, char *host, size_t host_len, int *port,
 
 /* --- JSON ----------------------------------------------------------------- */
 
-/* Build JSON with fn into t, growing the buffer until it fits. */
-static int build(struct view_text *t, size_t guess,
-		 void (*fn)(wt_json *j, void *arg), void *arg)
+int view_text_build(struct view_text *t, size_t guess,
+		    void (*fn)(wt_json *j, const void *arg), const void *arg)
 {
 	size_t cap = guess;
 
@@ -234,9 +233,9 @@ struct setup_arg {
 	const wt_config *cfg;
 };
 
-static void setup_json(wt_json *j, void *arg)
+static void setup_json(wt_json *j, const void *arg)
 {
-	struct setup_arg *a = arg;
+	const struct setup_arg *a = arg;
 	const wt_draw_info *in = wt_draw_scene_info(a->v->scene);
 
 	wt_json_object_begin(j);
@@ -286,7 +285,7 @@ struct tick_arg {
 	char *status;	     /* newest status text, or NULL */
 	double status_age_s; /* NaN: never */
 	bool arrays;	     /* send the frame's arrays this time */
-	float map[VIEW_MAP * VIEW_MAP];
+	float *map; /* VIEW_MAP x VIEW_MAP scratch for the wavefront map */
 };
 
 static void bits_json(wt_json *j, const uint8_t *b, size_t n)
@@ -305,7 +304,7 @@ static void bits_json(wt_json *j, const uint8_t *b, size_t n)
 	free(s);
 }
 
-static void frame_json(wt_json *j, struct tick_arg *a)
+static void frame_json(wt_json *j, const struct tick_arg *a)
 {
 	const wt_draw_info *in = wt_draw_scene_info(a->v->scene);
 	size_t n = (size_t)in->lenslets->n_valid;
@@ -370,9 +369,9 @@ static void frame_json(wt_json *j, struct tick_arg *a)
 	wt_json_object_end(j);
 }
 
-static void tick_json(wt_json *j, void *arg)
+static void tick_json(wt_json *j, const void *arg)
 {
-	struct tick_arg *a = arg;
+	const struct tick_arg *a = arg;
 	struct view *v = a->v;
 	const wt_draw_info *in = wt_draw_scene_info(v->scene);
 	const wt_draw_point *p = in->n_hist ? &in->hist[in->n_hist - 1] : NULL;
@@ -673,8 +672,8 @@ static void tick(struct feed *f, uint64_t start_ns, struct tick_arg *a)
 	every = 1 + (int)(values / TICK_VALUES);
 	a->arrays = f->ticks % (uint64_t)every == 0;
 	f->ticks++;
-	if (build(&v->tick, 16384 + 12 * values + f->status.len, tick_json,
-		  a) == 0) {
+	if (view_text_build(&v->tick, 16384 + 12 * values + f->status.len,
+			    tick_json, a) == 0) {
 		v->tick_seq++;
 		pthread_cond_broadcast(&v->cond);
 	}
@@ -691,7 +690,11 @@ static int run(struct view *v, bool no_truth)
 	uint64_t start = wt_clock_ns(), period, next;
 	int rc = 0;
 
-	if (!a) {
+	if (a) {
+		a->map = calloc(VIEW_MAP * VIEW_MAP, sizeof(*a->map));
+	}
+	if (!a || !a->map) {
+		free(a);
 		return -ENOMEM;
 	}
 	period = (uint64_t)(1e9 / v->rate_hz);
@@ -761,6 +764,7 @@ out:
 	zmq_msg_close(&f.msg);
 	free(f.frame);
 	view_text_free(&f.status);
+	free(a->map);
 	free(a);
 	return rc;
 }
@@ -862,7 +866,7 @@ int main(int argc, char **argv)
 		goto out;
 	}
 	sa = (struct setup_arg){.v = &v, .cfg = cfg};
-	if (build(&v.setup, 65536, setup_json, &sa) < 0) {
+	if (view_text_build(&v.setup, 65536, setup_json, &sa) < 0) {
 		fprintf(stderr, "wavetrim-view: out of memory\n");
 		goto out;
 	}
