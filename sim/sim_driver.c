@@ -405,7 +405,10 @@ static void sim_command(sim_driver *d, const void *msg, size_t len)
 		sim_refuse(d, "answers a frame not yet sent", 0);
 		return;
 	}
-	if ((int64_t)h.sequence <= d->accepted_upto) {
+	/* A second answer to the same frame replaces the first (the daemon
+	 * sends its flat or safe command that way when it stops or faults);
+	 * only answers to older frames are stale. */
+	if ((int64_t)h.sequence < d->accepted_upto) {
 		d->st.stale++;
 		return;
 	}

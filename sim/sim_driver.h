@@ -18,10 +18,12 @@
  * A command is refused - counted in `refused`, never applied - when it
  * fails wt_proto_decode(), is not of kind COMMAND_F32, has a width other
  * than the actuator count, holds a NaN or infinity, or answers a frame not
- * yet sent.  A command whose sequence is not above that of every command
- * accepted before it (a duplicate or out-of-order one) is dropped as stale
- * (counted in `stale`).  An accepted command's values outside [-1, 1] are
- * clipped by the mirror and counted (sim_mirror.h).
+ * yet sent.  A command answering an older frame than a command accepted
+ * before it (an out-of-order one) is dropped as stale (counted in
+ * `stale`); a second answer to the same frame replaces the first (that is
+ * how the daemon's flat or safe command arrives when it stops or faults).
+ * An accepted command's values outside [-1, 1] are clipped by the mirror
+ * and counted (sim_mirror.h).
  *
  * Timing, sim.mode = lockstep, d = sim.delay >= 1:
  *   - frames 0 .. d-1 are exposed and sent at once, with the mirror flat;

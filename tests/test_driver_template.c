@@ -317,11 +317,12 @@ static void refuses_bad_commands_applies_good_one(void **state)
 {
 	static uint8_t msg[WT_PROTO_HEADER_BYTES + 2 * N_PX * N_PX + 16];
 	uint8_t good[WT_PROTO_HEADER_BYTES + 4 * 64], bad[sizeof(good) + 1];
+	uint8_t older[sizeof(good)];
 	float v[64];
 	const int n_act = n_actuators();
-	wt_header h;
+	wt_header h, h2;
 	struct rig *r = *state;
-	size_t len;
+	size_t len, older_len;
 	int refused = 0;
 
 	assert_true(n_act <= 64);
@@ -329,13 +330,21 @@ static void refuses_bad_commands_applies_good_one(void **state)
 	assert_int_equal(
 		wt_proto_decode(msg, recv_frame(r, msg, sizeof(msg)), &h, NULL),
 		0);
+	/* A later frame: the good command answers it, so an answer to the
+	 * first one is out of order. */
+	assert_int_equal(wt_proto_decode(msg, recv_frame(r, msg, sizeof(msg)),
+					 &h2, NULL),
+			 0);
+	assert_true(h2.sequence > h.sequence);
 	for (int i = 0; i < n_act; i++) {
 		v[i] = 0.1f;
 	}
 	v[0] = 1.5f; /* out of range: the template clamps these two */
 	v[1] = -3.0f;
 	len = command(good, sizeof(good), WT_KIND_COMMAND_F32, n_act,
-		      h.sequence, v);
+		      h2.sequence, v);
+	older_len = command(older, sizeof(older), WT_KIND_COMMAND_F32, n_act,
+			    h.sequence, v);
 
 	send_msg(r, good, 20, 0); /* shorter than the header */
 	memcpy(bad, good, len);
@@ -371,9 +380,10 @@ static void refuses_bad_commands_applies_good_one(void **state)
 	send_msg(r, good, len, ZMQ_SNDMORE);
 	send_msg(r, good, len, 0);
 	refused += 2;
-	/* The good one, then the same again (stale: never go back). */
+	/* The good one, then an answer to an older frame (stale: never go
+	 * back). */
 	send_msg(r, good, len, 0);
-	send_msg(r, good, len, 0);
+	send_msg(r, older, older_len, 0);
 
 	/* ZeroMQ delivers in order on one pipe; 20 more frames (100 ms at
 	 * 200 Hz) give the template ample time to have read all of it. */

@@ -302,6 +302,86 @@ static void daemon_refuses_calibration_of_other_dimensions(void **st)
 	e2e_teardown(&e, NULL, NULL);
 }
 
+/* A malformed configuration is refused at start: exit 2 and the loader's
+ * file:line: section.key: reason on stderr. */
+static void daemon_refuses_bad_config_with_file_and_line(void **st)
+{
+	static const char *const ov[] = {"control.gain=7", NULL};
+	e2e e;
+	e2e_run_result *r = malloc(sizeof(*r));
+	char want[256];
+
+	(void)st;
+	assert_non_null(r);
+	assert_int_equal(e2e_setup(&e, ov), 0);
+	char *argv[] = {(char *)WT_DAEMON_BIN, "-c", e.ini, NULL};
+	assert_int_equal(e2e_run(argv, 10000, r), 0);
+	assert_int_equal(r->status, 2);
+	snprintf(want, sizeof(want), "%s:", e.ini);
+	assert_non_null(strstr(r->err, want));
+	assert_non_null(strstr(r->err, "control.gain: 7 is above the maximum"));
+	free(r);
+	e2e_teardown(&e, NULL, NULL);
+}
+
+/* A second daemon on the endpoints of a running one is refused, exit 2,
+ * and the first one carries on. */
+static void second_daemon_on_same_endpoints_is_refused(void **st)
+{
+	e2e e;
+	e2e_run_result *r = malloc(sizeof(*r));
+
+	(void)st;
+	assert_non_null(r);
+	assert_int_equal(e2e_setup(&e, NULL), 0);
+	assert_int_equal(e2e_start_sim(&e), 0);
+	assert_int_equal(e2e_start_daemon(&e, NULL), 0);
+	char *argv[] = {(char *)WT_DAEMON_BIN, "-c", e.ini, NULL};
+	assert_int_equal(e2e_run(argv, 10000, r), 0);
+	assert_int_equal(r->status, 2);
+	assert_non_null(strstr(r->err, "in use"));
+	assert_int_equal(e2e_request(&e, "ping"), 1);
+	free(r);
+	stop_clean(&e);
+}
+
+/* SIGTERM while the loop is closed: the daemon sends the flat command and
+ * exits 0; the simulator's truth shows the mirror flat again. */
+static void sigterm_sends_flat_and_exits_zero(void **st)
+{
+	e2e e;
+	sim_truth t;
+	double open_rms, closed_rms;
+	int status;
+
+	(void)st;
+	start_loaded(&e, NULL);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	open_rms = mean_rms(&e, 3, NULL);
+	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	assert_int_equal(e2e_truth_skip(&e, 40, &t, 5000), 0);
+	closed_rms = mean_rms(&e, 3, NULL);
+	assert_true(closed_rms < open_rms / 5);
+	assert_int_equal(kill(e.daemon, SIGTERM), 0);
+	assert_int_equal(waitpid(e.daemon, &status, 0), e.daemon);
+	e.daemon = 0;
+	assert_true(WIFEXITED(status));
+	assert_int_equal(WEXITSTATUS(status), 0);
+	/* The flat answers the last frame: the frame after it is exposed
+	 * with the mirror flat (lockstep, delay 1). */
+	for (int k = 0; k < 50; k++) {
+		if (e2e_truth(&e, &t, 3000) != 0) {
+			break;
+		}
+		if (fabs(t.rms_nm - open_rms) < 0.02 * open_rms) {
+			break;
+		}
+	}
+	assert_true(fabs(t.rms_nm - open_rms) < 0.02 * open_rms);
+	e2e_teardown(&e, NULL, NULL);
+}
+
 static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(fixture_calibration_is_measured_and_saved),
 	cmocka_unit_test(closed_loop_corrects_static_aberration_below_marechal),
@@ -310,6 +390,9 @@ static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(driver_death_faults_and_close_recovers),
 	cmocka_unit_test(calibration_file_round_trip_gives_same_residual),
 	cmocka_unit_test(daemon_refuses_calibration_of_other_dimensions),
+	cmocka_unit_test(daemon_refuses_bad_config_with_file_and_line),
+	cmocka_unit_test(second_daemon_on_same_endpoints_is_refused),
+	cmocka_unit_test(sigterm_sends_flat_and_exits_zero),
 };
 
 WT_TEST_MAIN(tests)

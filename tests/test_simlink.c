@@ -351,7 +351,8 @@ static void malformed_commands_are_refused_and_not_applied(void **state)
 	assert_true(after.rms_nm == before.rms_nm);
 	assert_true(after.strehl == before.strehl);
 	assert_true(after.command == 0);
-	/* a duplicate answer is stale, not applied either */
+	/* a second answer to frame 0 replaces the first; the flat answer to
+	 * frame 1 then wins again (applied in order) */
 	for (k = 0; k < l->n_act; k++) {
 		l->cmd[k] = 0.7f;
 	}
@@ -360,6 +361,18 @@ static void malformed_commands_are_refused_and_not_applied(void **state)
 	send_cmd(l, 1);
 	assert_int_equal(next_frame(l, 5000), 2);
 	truth_of(l, 2, &after);
+	assert_true(after.stale == 0);
+	assert_true(after.rms_nm == before.rms_nm);
+	/* an answer to an older frame than one accepted is stale, not
+	 * applied */
+	for (k = 0; k < l->n_act; k++) {
+		l->cmd[k] = 0.7f;
+	}
+	send_cmd(l, 0);
+	memset(l->cmd, 0, sizeof(l->cmd));
+	send_cmd(l, 2);
+	assert_int_equal(next_frame(l, 5000), 3);
+	truth_of(l, 3, &after);
 	assert_true(after.stale == 1);
 	assert_true(after.rms_nm == before.rms_nm);
 	link_stop(l);

@@ -212,8 +212,11 @@ static int serve_commands(struct driver *d, void *sock, zmq_msg_t *msg,
 					fprintf(stderr, NAME ": refused: %s\n",
 						why);
 				}
-			} else if ((int64_t)seq <= d->last_cmd) {
-				d->stale++; /* repeated or out of order */
+			} else if ((int64_t)seq < d->last_cmd) {
+				/* out of order; a second answer to the same
+				 * frame replaces the first (the daemon's flat
+				 * when it stops, its safe command in fault) */
+				d->stale++;
 			} else {
 				d->skipped += have;
 				have = true;
