@@ -332,6 +332,8 @@ typedef struct wt_request {
 	char value[WT_REQUEST_LINE_MAX + 1]; /**< set: the value text */
 	char path[WT_REQUEST_LINE_MAX + 1];  /**< save, load: the file */
 	long frames;  /**< reference: FRAMES, 0 = the default */
+	int patterns; /**< calibrate: index in calibration.patterns'
+		       *   choices (0 single, 1 hadamard), -1 = the option */
 	bool capture; /**< flat capture */
 } wt_request;
 
