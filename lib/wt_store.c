@@ -429,6 +429,15 @@ static int check_for_save(const wt_calibration *c, wt_error *err)
 				    "calibration holds values that are not "
 				    "finite");
 	}
+	if (c->report &&
+	    (!c->report->diag || !c->report->diag->act ||
+	     !c->report->diag->sv || c->report->diag->n_act != c->n_act ||
+	     c->report->diag->n_slopes != c->n_slopes ||
+	     c->report->diag->n_sv != c->n_sv)) {
+		return wt_error_set(err, -EINVAL,
+				    "calibration report does not fit the "
+				    "calibration's sizes");
+	}
 	return 0;
 }
 
