@@ -6,6 +6,7 @@
  *   wavetrim [OPTIONS] snapshot FILE  draw the live panels to FILE.png|.svg
  *   wavetrim [OPTIONS] calibrate [single|hadamard]
  *                                     calibrate, wait, print the report
+ *                                     (--no-wait: print the reply only)
  *   wavetrim [--json] calibration show FILE
  *                                     print a calibration file's report
  *                                     (no daemon needed)
@@ -70,6 +71,8 @@ static void usage(FILE *out)
 		"  -t, --telemetry ENDPOINT telemetry endpoint (for watch)\n"
 		"      --json              print the daemon's JSON reply "
 		"unchanged\n"
+		"      --no-wait           calibrate: print the reply, do not "
+		"wait for the report\n"
 		"  -w, --timeout MS        give up after MS milliseconds "
 		"(default 5000)\n"
 		"  -h, --help              this text\n"
@@ -630,6 +633,7 @@ int main(int argc, char **argv)
 		{"control", required_argument, NULL, 'e'},
 		{"telemetry", required_argument, NULL, 't'},
 		{"json", no_argument, NULL, 'j'},
+		{"no-wait", no_argument, NULL, 'n'},
 		{"timeout", required_argument, NULL, 'w'},
 		{"help", no_argument, NULL, 'h'},
 		{NULL, 0, NULL, 0},
@@ -640,6 +644,7 @@ int main(int argc, char **argv)
 	const char *telemetry = NULL;
 	const char *config_path = NULL;
 	int json = 0;
+	int no_wait = 0;
 	int timeout_ms = 5000;
 	int rc = 2;
 	int opt;
@@ -663,6 +668,9 @@ int main(int argc, char **argv)
 			break;
 		case 'j':
 			json = 1;
+			break;
+		case 'n':
+			no_wait = 1;
 			break;
 		case 'w':
 			timeout_ms = atoi(optarg);
@@ -750,7 +758,7 @@ int main(int argc, char **argv)
 			goto out;
 		}
 	}
-	if (strcmp(argv[optind], "calibrate") == 0) {
+	if (strcmp(argv[optind], "calibrate") == 0 && !no_wait) {
 		rc = do_calibrate_wait(ctx, control, telemetry, line, json,
 				       timeout_ms);
 		goto out;
