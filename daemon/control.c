@@ -54,6 +54,7 @@ struct wtd_ctl {
 	bool have_ref;
 	float *flat;   /* installed flat */
 	double *norms; /* n_act scratch */
+	wt_calreport *report; /* of D: measured, or read from its file */
 	char created[32];
 	char source[16];
 	char file[WT_REQUEST_LINE_MAX + 1];
@@ -112,7 +113,8 @@ static void post_event(struct wtd_ctl *ctl, const char *name,
 		       const void *arg)
 {
 	struct wtd *d = ctl->d;
-	size_t cap = 4096 + 32 * ((size_t)ctl->n_sv + (size_t)d->n_act);
+	size_t cap = 4096 + 32 * ((size_t)ctl->n_sv + (size_t)d->n_act) +
+		     wt_calreport_json_size(ctl->report);
 	char *buf = malloc(cap);
 	wt_json j;
 
@@ -282,8 +284,6 @@ static int build_matrix(struct wtd_ctl *ctl, const wt_config *cfg,
 static void body_report(struct wtd_ctl *ctl, wt_json *j, const void *arg)
 {
 	struct wtd *d = ctl->d;
-	double median;
-	double *sorted;
 	int k;
 
 	(void)arg;
@@ -297,34 +297,22 @@ static void body_report(struct wtd_ctl *ctl, wt_json *j, const void *arg)
 	wt_json_double_array(j, ctl->sv, (size_t)ctl->n_sv, 8);
 	wt_json_key(j, "missing");
 	wt_json_int(j, ctl->missing);
-	/* Actuators whose response is under a quarter of the median: dead,
-	 * weak or unplugged (common practice). */
+	/* Actuators the report finds dead or weak (lib/wt_diag.h). */
 	wt_json_key(j, "weak_actuators");
 	wt_json_array_begin(j);
-	sorted = malloc(sizeof(double) * (size_t)d->n_act);
-	if (sorted && wt_calib_response_norms(ctl->D, d->n_slopes, d->n_act,
-					      ctl->norms) == 0) {
-		int n = d->n_act, a, b;
-
-		memcpy(sorted, ctl->norms, sizeof(double) * (size_t)n);
-		for (a = 1; a < n; a++) { /* insertion sort: n is small */
-			double v = sorted[a];
-
-			for (b = a - 1; b >= 0 && sorted[b] > v; b--) {
-				sorted[b + 1] = sorted[b];
-			}
-			sorted[b + 1] = v;
-		}
-		median = n % 2 ? sorted[n / 2]
-			       : 0.5 * (sorted[n / 2 - 1] + sorted[n / 2]);
-		for (k = 0; k < n; k++) {
-			if (ctl->norms[k] < 0.25 * median) {
-				wt_json_int(j, k);
-			}
+	for (k = 0; ctl->report && k < d->n_act; k++) {
+		if (ctl->report->diag->act[k].flags &
+		    (WT_DIAG_DEAD | WT_DIAG_WEAK)) {
+			wt_json_int(j, k);
 		}
 	}
-	free(sorted);
 	wt_json_array_end(j);
+	wt_json_key(j, "report");
+	if (ctl->report) {
+		wt_calreport_json(j, ctl->report);
+	} else {
+		wt_json_null(j);
+	}
 }
 
 /* The current UTC time as "YYYY-MM-DDTHH:MM:SSZ". */
@@ -336,6 +324,37 @@ static void utc_now(char *buf, size_t len)
 	buf[0] = '\0';
 	if (gmtime_r(&now, &tm)) {
 		strftime(buf, len, "%Y-%m-%dT%H:%M:%SZ", &tm);
+	}
+}
+
+/*
+ * The report of the matrix just measured (its noise and parameters read
+ * from the calibrator, which the caller still holds).  Without one (out of
+ * memory, or no SVD) the event carries "report":null.
+ */
+static void take_report(struct wtd_ctl *ctl, const wt_calib *cal)
+{
+	struct wtd *d = ctl->d;
+	double *rms = malloc(sizeof(double) * (size_t)d->n_slopes);
+	double noise = NAN;
+	wt_calib_params p;
+	wt_error err;
+
+	wt_calreport_destroy(ctl->report);
+	ctl->report = NULL;
+	if (!rms || wt_calib_matrix_params(cal, &p) < 0) {
+		free(rms);
+		return;
+	}
+	if (wt_calib_noise(cal, rms, &noise) < 0) {
+		noise = NAN;
+	}
+	free(rms);
+	if (wt_calreport_compute(ctl->D, d->lenslets, d->actuators, &p,
+				 ctl->missing, noise, &ctl->report,
+				 &err) < 0) {
+		wt_log_err(d->log, "calibration report not made: %s", err.msg);
+		ctl->report = NULL;
 	}
 }
 
@@ -391,6 +410,7 @@ static void pick_up_calibration(struct wtd_ctl *ctl)
 	memcpy(ctl->D, wt_calib_interaction(cal),
 	       sizeof(double) * (size_t)d->n_slopes * (size_t)d->n_act);
 	ctl->missing = wt_calib_missing(cal);
+	take_report(ctl, cal);
 	atomic_store_explicit(&d->c.calib_ready, 0, memory_order_release);
 	ctl->have_D = true;
 	wt_svd_destroy(ctl->svd);
@@ -546,7 +566,7 @@ static void do_flat(struct wtd_ctl *ctl, bool capture, struct outcome *o)
 }
 
 static void do_calibrate(struct wtd_ctl *ctl, enum wt_calib_kind kind,
-			 long frames, struct outcome *o)
+			 long frames, int patterns, struct outcome *o)
 {
 	const wt_config *cfg = ctl->d->cfg;
 	struct wtd_mb_msg m = {.type = WTD_MB_CALIBRATE, .i = (int)kind};
@@ -559,6 +579,8 @@ static void do_calibrate(struct wtd_ctl *ctl, enum wt_calib_kind kind,
 	m.cp.amplitude = wt_config_double(cfg, WT_OPT_CALIB_AMPLITUDE);
 	m.cp.settle = (int)wt_config_int(cfg, WT_OPT_CALIB_SETTLE);
 	m.cp.average = (int)wt_config_int(cfg, WT_OPT_CALIB_AVERAGE);
+	m.cp.patterns = patterns >= 0 ? patterns
+				      : wt_config_enum(cfg, WT_OPT_CALIB_PATTERNS);
 	m.cp.reference_frames =
 		frames > 0 ? (int)frames
 			   : (int)wt_config_int(cfg,
@@ -575,9 +597,11 @@ static void do_calibrate(struct wtd_ctl *ctl, enum wt_calib_kind kind,
 				fail(o,
 				     "actuator %d: flat %g +- "
 				     "calibration.amplitude %g leaves the "
-				     "limits [%g, %g]",
+				     "limits [%g, %g] (every %s pattern puts "
+				     "each actuator at flat +- amplitude)",
 				     a, (double)ctl->flat[a], m.cp.amplitude,
-				     lo, hi);
+				     lo, hi,
+				     wt_calib_patterns_name(m.cp.patterns));
 				return;
 			}
 		}
@@ -601,6 +625,10 @@ static void do_calibrate(struct wtd_ctl *ctl, enum wt_calib_kind kind,
 	wt_json_string(&j, wt_state_name(WT_STATE_CALIBRATING));
 	wt_json_key(&j, "kind");
 	wt_json_string(&j, wt_calib_kind_name(kind));
+	if (kind == WT_CALIB_MATRIX) {
+		wt_json_key(&j, "patterns");
+		wt_json_string(&j, wt_calib_patterns_name(m.cp.patterns));
+	}
 	wt_json_key(&j, "frames");
 	wt_json_int(&j, total);
 	wt_json_object_end(&j);
@@ -846,6 +874,7 @@ static void do_save(struct wtd_ctl *ctl, const char *path, struct outcome *o)
 	char *text;
 	wt_error err;
 	wt_json j;
+	int rc;
 
 	if (!ctl->have_D) {
 		fail(o, "no interaction matrix to save: calibrate first");
@@ -882,7 +911,10 @@ static void do_save(struct wtd_ctl *ctl, const char *path, struct outcome *o)
 	if (!c->created[0]) {
 		wt_calibration_stamp(c);
 	}
-	if (wt_store_save(path, c, &err) < 0) {
+	c->report = ctl->report; /* lent for the save */
+	rc = wt_store_save(path, c, &err);
+	c->report = NULL;
+	if (rc < 0) {
 		wt_calibration_destroy(c);
 		fail(o, "%s", err.msg);
 		return;
@@ -970,6 +1002,9 @@ static int adopt(struct wtd_ctl *ctl, wt_calibration *c, bool running,
 	ctl->recommended = count_by_ratio(ctl->sv, ctl->n_sv, ratio);
 	snprintf(ctl->created, sizeof(ctl->created), "%s", c->created);
 	snprintf(ctl->source, sizeof(ctl->source), "file");
+	wt_calreport_destroy(ctl->report);
+	ctl->report = c->report; /* NULL for files without one */
+	c->report = NULL;
 	return 0;
 }
 
@@ -1052,10 +1087,10 @@ static int handle(struct wtd_ctl *ctl, const char *line, size_t len)
 		do_flat(ctl, req->capture, &o);
 		break;
 	case WT_REQ_REFERENCE:
-		do_calibrate(ctl, WT_CALIB_REFERENCE, req->frames, &o);
+		do_calibrate(ctl, WT_CALIB_REFERENCE, req->frames, -1, &o);
 		break;
 	case WT_REQ_CALIBRATE:
-		do_calibrate(ctl, WT_CALIB_MATRIX, 0, &o);
+		do_calibrate(ctl, WT_CALIB_MATRIX, 0, req->patterns, &o);
 		break;
 	case WT_REQ_SET:
 		do_set(ctl, req, &o);
@@ -1225,6 +1260,7 @@ void wtd_control_destroy(struct wtd *d)
 	free(ctl->D);
 	free(ctl->sv);
 	free(ctl->norms);
+	wt_calreport_destroy(ctl->report);
 	free(ctl->R);
 	free(ctl->ref);
 	free(ctl->flat);

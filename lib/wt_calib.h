@@ -26,6 +26,24 @@
  * difference of a linear map), and the push-pull pair cancels s0 and any
  * slow drift that is linear in time across the pair.
  *
+ * Interaction matrix with Hadamard patterns (patterns =
+ * WT_CALIB_HADAMARD): the 2N states flat + a h_p then flat - a h_p for the
+ * N = wt_hadamard_order(n_act) Sylvester patterns h_p (every actuator at
+ * +-a in every state), each with its own settle and average; m_p = (s+ -
+ * s-) / (2 a) and D = M H_n / N by wt_hadamard_decode() on the finishing
+ * frame (no allocation; N log2 N additions per slope).  For the same frames
+ * each entry of D has n_act times less noise variance than one actuator at
+ * a time (wt_hadamard.h).  A subaperture with no valid frame in the push or
+ * the pull of any pattern gives no measurement for any actuator (every
+ * decoded entry of its row mixes every pattern): its rows of D are 0 and
+ * wt_calib_missing() counts n_act pairs for it.
+ *
+ * Noise.  While averaging, the spread of each slope about its pattern's
+ * mean is pooled over every pattern of the run (within-group variance,
+ * divisor frames - 1 per group: common practice, analysis of variance):
+ * wt_calib_noise() gives the per-slope noise of one frame with the mirror
+ * held still, the input of wt_diag_matrix_noise().
+ *
  * Frames whose slopes hold a NaN or an infinity are not counted: the
  * pattern is simply held one frame longer (wt_calib_skipped() counts them).
  *
@@ -61,12 +79,22 @@ enum wt_calib_kind {
 /** "none", "reference", "matrix". */
 const char *wt_calib_kind_name(enum wt_calib_kind kind);
 
+/** Which patterns a matrix run pokes (calibration.patterns). */
+enum wt_calib_patterns {
+	WT_CALIB_SINGLE = 0,   /**< one actuator at a time */
+	WT_CALIB_HADAMARD = 1, /**< every actuator, Hadamard signs */
+};
+
+/** "single", "hadamard"; "?" for others. */
+const char *wt_calib_patterns_name(int patterns);
+
 /** How to measure (the [calibration] options). */
 typedef struct wt_calib_params {
 	double amplitude;     /**< poke a, normalised stroke, > 0 */
 	int settle;	      /**< frames discarded after each new pattern */
 	int average;	      /**< frames averaged per poke (>= 1) */
 	int reference_frames; /**< frames averaged for the reference (>= 1) */
+	int patterns;	      /**< enum wt_calib_patterns (matrix runs) */
 } wt_calib_params;
 
 /** Return values of wt_calib_step() that are not errors. */
@@ -91,7 +119,8 @@ void wt_calib_destroy(wt_calib *c);
 /**
  * Frames a run of this kind takes, from its start to the step that
  * returns WT_CALIB_DONE, when no frame is skipped: reference
- * 1 + settle + reference_frames; matrix 1 + 2 n_act (settle + average).
+ * 1 + settle + reference_frames; matrix 1 + 2 P (settle + average) with
+ * P = n_act patterns one at a time, P = wt_hadamard_order(n_act) Hadamard.
  * -EINVAL for bad parameters.
  */
 long wt_calib_frames(enum wt_calib_kind kind, const wt_calib_params *p,
@@ -102,7 +131,8 @@ long wt_calib_frames(enum wt_calib_kind kind, const wt_calib_params *p,
  * (n_act values) is copied.  lo and hi (n_act values each, or NULL for no
  * limits) are the mirror's limits: a matrix run whose flat +- amplitude
  * would leave them is refused with -ERANGE and the first actuator that
- * would.  Also -EINVAL for bad parameters or a kind that is no run, and
+ * would (every pattern, single or Hadamard, puts each actuator at flat + a
+ * or flat - a, so this covers every pattern).  Also -EINVAL for bad parameters or a kind that is no run, and
  * -EBUSY while a run is in progress.  No allocation.
  */
 int wt_calib_start(wt_calib *c, enum wt_calib_kind kind,
@@ -136,6 +166,20 @@ long wt_calib_skipped(const wt_calib *c);
  * frame: (subaperture, actuator) pairs of a matrix run, subapertures of a
  * reference run. */
 long wt_calib_missing(const wt_calib *c);
+
+/**
+ * Per-slope noise of one frame from the last finished matrix run: the
+ * pooled standard deviation of each slope about its pattern's mean (see
+ * Noise above) into rms (n_slopes values; NaN where no pattern had two
+ * valid frames), and *rms_all (may be NULL) the square root of the mean
+ * variance over the slopes that have one.  -ENODATA when no matrix result
+ * exists or no slope has a variance (average = 1); -EINVAL for NULL rms.
+ */
+int wt_calib_noise(const wt_calib *c, double *rms, double *rms_all);
+
+/** The parameters of the last finished matrix run into *p; -ENODATA when
+ * there is none. */
+int wt_calib_matrix_params(const wt_calib *c, wt_calib_params *p);
 
 /** Whether a finished result of this kind is available. */
 bool wt_calib_has_result(const wt_calib *c, enum wt_calib_kind kind);

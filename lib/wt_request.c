@@ -3,6 +3,7 @@
 
 #include <errno.h>
 #include <string.h>
+#include <strings.h>
 
 #include "wt_json.h"
 
@@ -50,7 +51,7 @@ static const struct word_def words[WT_REQ_COUNT] = {
 	[WT_REQ_REFERENCE] = {"reference", 0, 1, "reference [FRAMES]",
 			      "measure the reference slopes with the mirror "
 			      "flat (from open)"},
-	[WT_REQ_CALIBRATE] = {"calibrate", 0, 0, "calibrate",
+	[WT_REQ_CALIBRATE] = {"calibrate", 0, 1, "calibrate [single|hadamard]",
 			      "measure the interaction matrix and build the "
 			      "control matrix (from open)"},
 	[WT_REQ_SET] = {"set", 2, 2, "set SECTION.KEY VALUE",
@@ -322,6 +323,19 @@ int wt_request_parse(const char *line, size_t len, wt_request *req,
 						    word[1], def->usage);
 			}
 			req->capture = true;
+		}
+		break;
+	case WT_REQ_CALIBRATE:
+		req->patterns = -1;
+		if (nargs == 1) {
+			o = wt_option_get(WT_OPT_CALIB_PATTERNS);
+			if (wt_option_check(o, word[1], NULL) < 0) {
+				return wt_error_set(err, -EINVAL,
+						    "unknown patterns '" ECHO
+						    "'; usage: %s",
+						    word[1], def->usage);
+			}
+			req->patterns = strcasecmp(word[1], "hadamard") == 0;
 		}
 		break;
 	case WT_REQ_REFERENCE:

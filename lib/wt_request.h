@@ -102,20 +102,32 @@
  *                        axes).  RESULT: {"state":"calibrating",
  *                        "kind":"reference","frames":TOTAL} (TOTAL frames
  *                        until done).
- * calibrate              Measure the interaction matrix: for each
- *                        actuator in turn, flat + a then flat - a (a =
- *                        `calibration.amplitude`), each held for `settle`
- *                        discarded then `average` averaged frames; column =
- *                        (s+ - s-) / (2a); a subaperture counts only in
+ * calibrate [single|hadamard]
+ *                        Measure the interaction matrix, with the
+ *                        patterns named or else `calibration.patterns`.
+ *                        single: for each actuator in turn, flat + a then
+ *                        flat - a (a = `calibration.amplitude`), each held
+ *                        for `settle` discarded then `average` averaged
+ *                        frames; column = (s+ - s-) / (2a).  hadamard: for
+ *                        each of the N Hadamard patterns h_p (N the
+ *                        smallest power of two >= actuators; every
+ *                        actuator at +-a in every pattern), flat + a h_p
+ *                        then flat - a h_p, held and averaged the same
+ *                        way, decoded to D = M H / N (lib/wt_hadamard.h):
+ *                        n_act times less noise variance per entry for
+ *                        the same frames.  A subaperture counts only in
  *                        the frames where it is above sensor.min_flux.
  *                        Then the truncated-SVD control
  *                        matrix (modes from control.modes or
  *                        control.min_sv_ratio) is built outside the loop
  *                        and installed between two frames; a `calibration`
- *                        event reports it.  From open only; refused when
- *                        flat +- a would leave [limit_low, limit_high].
+ *                        event reports it with the calibration report.
+ *                        From open only; refused when flat +- a would
+ *                        leave [limit_low, limit_high] for any actuator
+ *                        (every pattern of either kind puts each
+ *                        actuator at flat + a or flat - a).
  *                        RESULT: {"state":"calibrating","kind":"matrix",
- *                        "frames":TOTAL}.
+ *                        "patterns":"single"|"hadamard","frames":TOTAL}.
  * set SECTION.KEY VALUE  Change a live option (see --help-config).  VALUE
  *                        is INI text (quote it if it holds blanks).  Options
  *                        that are not live are refused with "SECTION.KEY
@@ -229,9 +241,19 @@
  *                           "singular_values":[...],"missing":N
  *                           ((subaperture, actuator) pairs without a valid
  *                           frame in the push or the pull: entry 0),
- *                           "weak_actuators":[...] (actuators whose
- *                           response norm is under a quarter of the
- *                           median: dead, weak or unplugged)
+ *                           "weak_actuators":[...] (actuators the
+ *                           report flags dead or weak),
+ *                           "report":REPORT|null (the calibration
+ *                           report: measurement settings and noise,
+ *                           per-actuator response norms and centroids,
+ *                           flags with their evidence, misregistration,
+ *                           the spectrum with the modes it recommends
+ *                           and why; the object of lib/wt_calreport.h,
+ *                           also stored in the saved file under
+ *                           /report).  "recommended" is the count by
+ *                           control.min_sv_ratio; the report's
+ *                           spectrum.recommended is the count the
+ *                           measurement noise supports.
  *   "matrix_installed"      "modes":K,"condition":NUMBER
  *   "reference_installed"
  *   "flat_changed"
@@ -332,6 +354,8 @@ typedef struct wt_request {
 	char value[WT_REQUEST_LINE_MAX + 1]; /**< set: the value text */
 	char path[WT_REQUEST_LINE_MAX + 1];  /**< save, load: the file */
 	long frames;  /**< reference: FRAMES, 0 = the default */
+	int patterns; /**< calibrate: index in calibration.patterns'
+		       *   choices (0 single, 1 hadamard), -1 = the option */
 	bool capture; /**< flat capture */
 } wt_request;
 

@@ -3,6 +3,7 @@
 
 #include <errno.h>
 #include <math.h>
+#include <stddef.h>
 #include <stdbool.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -65,6 +66,7 @@ void wt_calibration_destroy(wt_calibration *c)
 	free(c->act_col);
 	free(c->act_row);
 	free(c->config_ini);
+	wt_calreport_destroy(c->report);
 	free(c);
 }
 
@@ -247,6 +249,28 @@ static int write_attr_int(hid_t obj, const char *name, int value)
 	return rc;
 }
 
+static int write_attr_double(hid_t obj, const char *name, double value)
+{
+	hid_t space = H5Screate(H5S_SCALAR);
+	hid_t attr = -1;
+	int rc = -1;
+
+	if (space >= 0) {
+		attr = H5Acreate2(obj, name, H5T_IEEE_F64LE, space, H5P_DEFAULT,
+				  H5P_DEFAULT);
+	}
+	if (attr >= 0 && H5Awrite(attr, H5T_NATIVE_DOUBLE, &value) >= 0) {
+		rc = 0;
+	}
+	if (attr >= 0) {
+		H5Aclose(attr);
+	}
+	if (space >= 0) {
+		H5Sclose(space);
+	}
+	return rc;
+}
+
 static hid_t string_type(size_t len)
 {
 	hid_t t = H5Tcopy(H5T_C_S1);
@@ -405,7 +429,146 @@ static int check_for_save(const wt_calibration *c, wt_error *err)
 				    "calibration holds values that are not "
 				    "finite");
 	}
+	if (c->report &&
+	    (!c->report->diag || !c->report->diag->act ||
+	     !c->report->diag->sv || c->report->diag->n_act != c->n_act ||
+	     c->report->diag->n_slopes != c->n_slopes ||
+	     c->report->diag->n_sv != c->n_sv)) {
+		return wt_error_set(err, -EINVAL,
+				    "calibration report does not fit the "
+				    "calibration's sizes");
+	}
 	return 0;
+}
+
+/* One column of the per-actuator table as a dataset of n values (double
+ * when is_int is 0, int32 otherwise), gathered from the struct array. */
+static int write_act_column(hid_t g, const char *name,
+			    const wt_diag_report *d, size_t offset, int kind)
+{
+	hsize_t dims[2] = {(hsize_t)d->n_act, 2};
+	size_t n = (size_t)d->n_act, k;
+	double *v = malloc(sizeof(double) * 2 * n);
+	int *iv = malloc(sizeof(int) * n);
+	hid_t ds = -1;
+
+	if (v && iv) {
+		for (k = 0; k < n; k++) {
+			const char *base = (const char *)&d->act[k];
+			const wt_diag_actuator *a = &d->act[k];
+
+			switch (kind) {
+			case 0: /* double member */
+				memcpy(&v[k], base + offset, sizeof(double));
+				break;
+			case 1: /* pair of doubles */
+				memcpy(&v[2 * k], base + offset,
+				       sizeof(double));
+				memcpy(&v[2 * k + 1],
+				       base + offset + sizeof(double),
+				       sizeof(double));
+				break;
+			default: /* int member */
+				iv[k] = offset == offsetof(wt_diag_actuator,
+							   flags)
+						? (int)a->flags
+					: offset == offsetof(wt_diag_actuator,
+							     partner)
+						? a->partner
+					: offset == offsetof(wt_diag_actuator,
+							     interior)
+						? (int)a->interior
+						: (int)a->in_fit;
+				break;
+			}
+		}
+		if (kind == 2) {
+			ds = write_dataset(g, name, H5T_STD_I32LE,
+					   H5T_NATIVE_INT, 1, dims, iv);
+		} else {
+			ds = write_dataset(g, name, H5T_IEEE_F64LE,
+					   H5T_NATIVE_DOUBLE, kind == 1 ? 2 : 1,
+					   dims, v);
+		}
+	}
+	free(v);
+	free(iv);
+	if (ds < 0) {
+		return -1;
+	}
+	H5Dclose(ds);
+	return 0;
+}
+
+static int save_report(hid_t f, const wt_calreport *r)
+{
+	const wt_diag_report *d = r->diag;
+	hsize_t dims[1];
+	hid_t g, ds;
+	int rc = -1;
+
+	if (!d) {
+		return -1;
+	}
+	g = H5Gcreate2(f, "report", H5P_DEFAULT, H5P_DEFAULT, H5P_DEFAULT);
+	if (g < 0) {
+		return -1;
+	}
+	dims[0] = (hsize_t)d->n_sv;
+	ds = write_dataset(g, "singular_values", H5T_IEEE_F64LE,
+			   H5T_NATIVE_DOUBLE, 1, dims, d->sv);
+	if (ds >= 0) {
+		H5Dclose(ds);
+	}
+	if (ds >= 0 &&
+	    write_attr_string(g, "patterns",
+			      wt_calib_patterns_name(r->patterns)) == 0 &&
+	    write_attr_string(g, "modes_reason", d->modes_reason) == 0 &&
+	    write_attr_double(g, "amplitude", r->amplitude) == 0 &&
+	    write_attr_double(g, "noise_rms", r->noise_rms) == 0 &&
+	    write_attr_double(g, "matrix_noise", r->matrix_noise) == 0 &&
+	    write_attr_double(g, "reference_norm", d->reference_norm) == 0 &&
+	    write_attr_double(g, "shift_x", d->shift_x) == 0 &&
+	    write_attr_double(g, "shift_y", d->shift_y) == 0 &&
+	    write_attr_double(g, "rotation_deg", d->rotation_deg) == 0 &&
+	    write_attr_double(g, "fit_rms", d->fit_rms) == 0 &&
+	    write_attr_double(g, "sv_floor", d->sv_floor) == 0 &&
+	    write_attr_int(g, "settle", r->settle) == 0 &&
+	    write_attr_int(g, "average", r->average) == 0 &&
+	    write_attr_int(g, "missing",
+			   r->missing > 2147483647L ? 2147483647
+						    : (int)r->missing) == 0 &&
+	    write_attr_int(g, "modes", d->modes) == 0 &&
+	    write_attr_int(g, "n_fit", d->n_fit) == 0 &&
+	    write_attr_int(g, "misregistered", d->misregistered) == 0 &&
+	    write_attr_int(g, "position_checked", d->position_checked) == 0 &&
+	    write_attr_int(g, "have_template", d->have_template) == 0 &&
+	    write_act_column(g, "norm", d, offsetof(wt_diag_actuator, norm),
+			     0) == 0 &&
+	    write_act_column(g, "expected_norm", d,
+			     offsetof(wt_diag_actuator, expected_norm),
+			     0) == 0 &&
+	    write_act_column(g, "coverage", d,
+			     offsetof(wt_diag_actuator, coverage), 0) == 0 &&
+	    write_act_column(g, "offset_pitches", d,
+			     offsetof(wt_diag_actuator, offset_pitches),
+			     0) == 0 &&
+	    write_act_column(g, "centroid", d, offsetof(wt_diag_actuator, cx),
+			     1) == 0 &&
+	    write_act_column(g, "expected_centroid", d,
+			     offsetof(wt_diag_actuator, ex), 1) == 0 &&
+	    write_act_column(g, "flags", d, offsetof(wt_diag_actuator, flags),
+			     2) == 0 &&
+	    write_act_column(g, "partner", d,
+			     offsetof(wt_diag_actuator, partner), 2) == 0 &&
+	    write_act_column(g, "interior", d,
+			     offsetof(wt_diag_actuator, interior), 2) == 0 &&
+	    write_act_column(g, "in_fit", d,
+			     offsetof(wt_diag_actuator, in_fit), 2) == 0) {
+		rc = 0;
+	}
+	H5Gclose(g);
+	return rc;
 }
 
 static int save_body(hid_t f, const wt_calibration *c, const char **step)
@@ -498,8 +661,15 @@ static int save_body(hid_t f, const wt_calibration *c, const char **step)
 		return -1;
 	}
 	*step = "config";
-	return write_string_dataset(f, "config",
-				    c->config_ini ? c->config_ini : "");
+	if (write_string_dataset(f, "config",
+				 c->config_ini ? c->config_ini : "") < 0) {
+		return -1;
+	}
+	if (c->report) {
+		*step = "report";
+		return save_report(f, c->report);
+	}
+	return 0;
 }
 
 int wt_store_save(const char *path, const wt_calibration *c, wt_error *err)
@@ -751,6 +921,41 @@ static int read_attr_int(struct reader *r, hid_t obj, const char *obj_name,
 	return 0;
 }
 
+static int read_attr_double(struct reader *r, hid_t obj, const char *name,
+			    double *value)
+{
+	hid_t a, type;
+	H5T_class_t cls;
+	herr_t st;
+
+	if (H5Aexists(obj, name) <= 0) {
+		return wt_error_set(r->err, -EINVAL, "attribute '%s' is missing",
+				    name);
+	}
+	a = H5Aopen(obj, name, H5P_DEFAULT);
+	if (a < 0) {
+		return wt_error_set(r->err, -EIO,
+				    "attribute '%s' cannot be opened", name);
+	}
+	type = H5Aget_type(a);
+	cls = type >= 0 ? H5Tget_class(type) : H5T_NO_CLASS;
+	if (type >= 0) {
+		H5Tclose(type);
+	}
+	if (cls != H5T_FLOAT || !holds_one(a, true)) {
+		H5Aclose(a);
+		return wt_error_set(r->err, -EINVAL,
+				    "attribute '%s' is not one number", name);
+	}
+	st = H5Aread(a, H5T_NATIVE_DOUBLE, value);
+	H5Aclose(a);
+	if (st < 0) {
+		return wt_error_set(r->err, -EIO,
+				    "attribute '%s' cannot be read", name);
+	}
+	return 0;
+}
+
 /* A fixed-length string (attribute when is_attr, else scalar dataset),
  * returned in a new buffer. */
 static int read_string(struct reader *r, hid_t obj, const char *name,
@@ -877,6 +1082,189 @@ static int read_positions(struct reader *r, const char *name, int *n, int **col,
 	return rc;
 }
 
+/* Dataset report/NAME of n x cols values of class cls into buf. */
+static int read_report_array(struct reader *r, const char *name,
+			     H5T_class_t cls, int n, int cols, hid_t mem,
+			     void *buf)
+{
+	char path[64];
+	hsize_t dims[2] = {0, 0};
+	hid_t ds;
+
+	snprintf(path, sizeof(path), "report/%s", name);
+	ds = open_dataset(r, path, cls, cols > 1 ? 2 : 1, dims);
+	if (ds < 0) {
+		return r->err ? r->err->code : -EINVAL;
+	}
+	if (dims[0] != (hsize_t)n || (cols > 1 && dims[1] != (hsize_t)cols)) {
+		H5Dclose(ds);
+		return wt_error_set(r->err, -EINVAL,
+				    "'%s' has %llu rows, %d expected", path,
+				    (unsigned long long)dims[0], n);
+	}
+	return read_all(r, ds, path, mem, buf);
+}
+
+/* The /report group into c->report (left NULL when there is none). */
+static int load_report_group(struct reader *r, wt_calibration *c)
+{
+	static const struct {
+		const char *name;
+		size_t offset;
+		int kind; /* 0 double, 1 pair, 2 int */
+	} cols[] = {
+		{"norm", offsetof(wt_diag_actuator, norm), 0},
+		{"expected_norm", offsetof(wt_diag_actuator, expected_norm), 0},
+		{"coverage", offsetof(wt_diag_actuator, coverage), 0},
+		{"offset_pitches", offsetof(wt_diag_actuator, offset_pitches),
+		 0},
+		{"centroid", offsetof(wt_diag_actuator, cx), 1},
+		{"expected_centroid", offsetof(wt_diag_actuator, ex), 1},
+		{"flags", offsetof(wt_diag_actuator, flags), 2},
+		{"partner", offsetof(wt_diag_actuator, partner), 2},
+		{"interior", offsetof(wt_diag_actuator, interior), 2},
+		{"in_fit", offsetof(wt_diag_actuator, in_fit), 2},
+	};
+	int na = c->n_act, k, rc = 0, iv[10];
+	size_t i;
+	wt_calreport *rep;
+	wt_diag_report *d;
+	double *v = NULL;
+	int *ints = NULL;
+	char *text = NULL;
+	hid_t g;
+
+	if (!object_exists(r->f, "report")) {
+		return 0;
+	}
+	rep = calloc(1, sizeof(*rep));
+	d = calloc(1, sizeof(*d));
+	if (rep) {
+		rep->diag = d;
+	}
+	if (d) {
+		d->n_act = na;
+		d->n_slopes = c->n_slopes;
+		d->n_sv = c->n_sv;
+		d->act = calloc((size_t)na, sizeof(*d->act));
+		d->sv = calloc((size_t)c->n_sv, sizeof(*d->sv));
+	}
+	v = malloc(sizeof(double) * 2 * (size_t)na);
+	ints = malloc(sizeof(int) * (size_t)na);
+	g = H5Gopen2(r->f, "report", H5P_DEFAULT);
+	if (!rep || !d || !d->act || !d->sv || !v || !ints || g < 0) {
+		rc = g < 0 ? wt_error_set(r->err, -EIO, "cannot be opened")
+			   : wt_error_set(r->err, -ENOMEM, "out of memory");
+		goto out;
+	}
+	rc = read_string(r, g, "patterns", true, &text);
+	if (rc == 0) {
+		rep->patterns = strcmp(text, "single") == 0	? WT_CALIB_SINGLE
+				: strcmp(text, "hadamard") == 0 ? WT_CALIB_HADAMARD
+								: -1;
+		free(text);
+		text = NULL;
+		rc = read_string(r, g, "modes_reason", true, &text);
+	}
+	if (rc == 0) {
+		snprintf(d->modes_reason, sizeof(d->modes_reason), "%s", text);
+	}
+	if (rc == 0 &&
+	    ((rc = read_attr_double(r, g, "amplitude", &rep->amplitude)) ||
+	     (rc = read_attr_double(r, g, "noise_rms", &rep->noise_rms)) ||
+	     (rc = read_attr_double(r, g, "matrix_noise",
+				    &rep->matrix_noise)) ||
+	     (rc = read_attr_double(r, g, "reference_norm",
+				    &d->reference_norm)) ||
+	     (rc = read_attr_double(r, g, "shift_x", &d->shift_x)) ||
+	     (rc = read_attr_double(r, g, "shift_y", &d->shift_y)) ||
+	     (rc = read_attr_double(r, g, "rotation_deg", &d->rotation_deg)) ||
+	     (rc = read_attr_double(r, g, "fit_rms", &d->fit_rms)) ||
+	     (rc = read_attr_double(r, g, "sv_floor", &d->sv_floor)))) {
+		goto out;
+	}
+	if (rc < 0) {
+		goto out;
+	}
+	{
+		static const char *const names[] = {
+			"settle",	 "average",	  "missing",
+			"modes",	 "n_fit",	  "misregistered",
+			"position_checked", "have_template",
+		};
+
+		for (i = 0; i < sizeof(names) / sizeof(names[0]); i++) {
+			rc = read_attr_int(r, g, "report", names[i], &iv[i]);
+			if (rc < 0) {
+				goto out;
+			}
+		}
+	}
+	rep->settle = iv[0];
+	rep->average = iv[1];
+	rep->missing = iv[2];
+	d->modes = iv[3];
+	d->n_fit = iv[4];
+	d->misregistered = iv[5] != 0;
+	d->position_checked = iv[6] != 0;
+	d->have_template = iv[7] != 0;
+	rc = read_report_array(r, "singular_values", H5T_FLOAT, c->n_sv, 1,
+			       H5T_NATIVE_DOUBLE, d->sv);
+	for (i = 0; rc == 0 && i < sizeof(cols) / sizeof(cols[0]); i++) {
+		if (cols[i].kind == 2) {
+			rc = read_report_array(r, cols[i].name, H5T_INTEGER, na,
+					       1, H5T_NATIVE_INT, ints);
+		} else {
+			rc = read_report_array(r, cols[i].name, H5T_FLOAT, na,
+					       cols[i].kind == 1 ? 2 : 1,
+					       H5T_NATIVE_DOUBLE, v);
+		}
+		for (k = 0; rc == 0 && k < na; k++) {
+			char *base = (char *)&d->act[k];
+			wt_diag_actuator *a = &d->act[k];
+
+			if (cols[i].kind == 0) {
+				memcpy(base + cols[i].offset, &v[k],
+				       sizeof(double));
+			} else if (cols[i].kind == 1) {
+				memcpy(base + cols[i].offset, &v[2 * k],
+				       2 * sizeof(double));
+			} else if (cols[i].offset ==
+				   offsetof(wt_diag_actuator, flags)) {
+				a->flags = (unsigned int)ints[k];
+			} else if (cols[i].offset ==
+				   offsetof(wt_diag_actuator, partner)) {
+				a->partner = ints[k];
+			} else if (cols[i].offset ==
+				   offsetof(wt_diag_actuator, interior)) {
+				a->interior = ints[k] != 0;
+			} else {
+				a->in_fit = ints[k] != 0;
+			}
+		}
+	}
+	if (rc == 0) {
+		rc = wt_calreport_check(rep, r->err);
+	}
+out:
+	if (g >= 0) {
+		H5Gclose(g);
+	}
+	free(text);
+	free(v);
+	free(ints);
+	if (rc < 0) {
+		char why[WT_ERROR_MAX];
+
+		snprintf(why, sizeof(why), "%s", r->err ? r->err->msg : "");
+		wt_calreport_destroy(rep);
+		return wt_error_set(r->err, -EINVAL, "%s: damaged report (%s)",
+				    r->path, why);
+	}
+	c->report = rep;
+	return 0;
+}
+
 static int load_body(struct reader *r, const wt_grid *lenslets,
 		     const wt_grid *actuators, int ppl, wt_calibration **out)
 {
@@ -951,7 +1339,9 @@ static int load_body(struct reader *r, const wt_grid *lenslets,
 	memcpy(c->act_col, acol, sizeof(int) * (size_t)n_act);
 	memcpy(c->act_row, arow, sizeof(int) * (size_t)n_act);
 
-	rc = wt_calibration_check(c, lenslets, actuators, ppl, r->err);
+	rc = lenslets ? wt_calibration_check(c, lenslets, actuators, ppl,
+					     r->err)
+		      : 0;
 	if (rc < 0) {
 		char why[WT_ERROR_MAX];
 
@@ -1022,6 +1412,10 @@ static int load_body(struct reader *r, const wt_grid *lenslets,
 	}
 	snprintf(c->created, sizeof(c->created), "%s", text);
 	free(text);
+	rc = load_report_group(r, c);
+	if (rc < 0) {
+		goto fail;
+	}
 	free(scol);
 	free(srow);
 	free(acol);
@@ -1037,9 +1431,10 @@ fail:
 	return rc < 0 ? rc : -EINVAL;
 }
 
-int wt_store_load(const char *path, const wt_grid *lenslets,
-		  const wt_grid *actuators, int pixels_per_lenslet,
-		  wt_calibration **out, wt_error *err)
+/* Load, checking against the grids when lenslets is not NULL. */
+static int load_file(const char *path, const wt_grid *lenslets,
+		     const wt_grid *actuators, int pixels_per_lenslet,
+		     wt_calibration **out, wt_error *err)
 {
 	struct reader r = {.path = path, .err = err};
 	wt_error local;
@@ -1047,9 +1442,6 @@ int wt_store_load(const char *path, const wt_grid *lenslets,
 	htri_t is;
 	int rc;
 
-	if (!path || !lenslets || !actuators || !out) {
-		return wt_error_set(err, -EINVAL, "load: missing argument");
-	}
 	if (!err) {
 		r.err = &local;
 	}
@@ -1082,4 +1474,23 @@ int wt_store_load(const char *path, const wt_grid *lenslets,
 	}
 	H5E_END_TRY;
 	return rc;
+}
+
+int wt_store_load(const char *path, const wt_grid *lenslets,
+		  const wt_grid *actuators, int pixels_per_lenslet,
+		  wt_calibration **out, wt_error *err)
+{
+	if (!path || !lenslets || !actuators || !out) {
+		return wt_error_set(err, -EINVAL, "load: missing argument");
+	}
+	return load_file(path, lenslets, actuators, pixels_per_lenslet, out,
+			 err);
+}
+
+int wt_store_read(const char *path, wt_calibration **out, wt_error *err)
+{
+	if (!path || !out) {
+		return wt_error_set(err, -EINVAL, "read: missing argument");
+	}
+	return load_file(path, NULL, NULL, 0, out, err);
 }

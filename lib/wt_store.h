@@ -22,6 +22,29 @@
  *                          actuator; attribute n (actuators across)
  *   /config                fixed-length string: the INI text of the
  *                          configuration the calibration was made with
+ *   /report                group, optional (files written before it have
+ *                          none and still load): the calibration report
+ *                          of the measured D (lib/wt_calreport.h).
+ *                          Attributes: patterns ("single"|"hadamard"),
+ *                          modes_reason (strings); amplitude, noise_rms,
+ *                          matrix_noise (NaN: unknown), reference_norm,
+ *                          shift_x, shift_y (lenslet pitches),
+ *                          rotation_deg, fit_rms, sv_floor (float64);
+ *                          settle, average, missing, modes (recommended),
+ *                          n_fit, misregistered, position_checked,
+ *                          have_template (int32).  Datasets [n_act]:
+ *                          norm, expected_norm, coverage, offset_pitches
+ *                          (float64; NaN: not judged), flags (int32,
+ *                          bits 1 dead, 2 weak, 4 swapped, 8 displaced,
+ *                          16 unseen), partner (int32, -1: none),
+ *                          interior, in_fit (int32 0/1); [n_act][2]
+ *                          float64: centroid, expected_centroid (pupil
+ *                          units, x then y; NaN for a zero response);
+ *                          singular_values float64 [n_sv] (of the
+ *                          measured D, as the report saw them).  A
+ *                          report that is present but damaged or
+ *                          inconsistent makes the load fail (-EINVAL,
+ *                          "damaged report: ...").
  *
  * n_slopes = 2 N, x slopes of the N valid subapertures then their y slopes
  * (see lib/wt_geometry.h).  Every numeric dataset is stored chunked with
@@ -38,6 +61,7 @@
 #ifndef WT_STORE_H
 #define WT_STORE_H
 
+#include "wt_calreport.h"
 #include "wt_error.h"
 #include "wt_geometry.h"
 
@@ -64,6 +88,7 @@ typedef struct wt_calibration {
 	int *act_col, *act_row; /**< n_act each */
 	char *config_ini;	/**< terminated text (may be empty) */
 	char created[32];	/**< "YYYY-MM-DDTHH:MM:SSZ" or "" */
+	wt_calreport *report;	/**< owned; NULL: none */
 } wt_calibration;
 
 /**
@@ -118,5 +143,11 @@ int wt_store_save(const char *path, const wt_calibration *c, wt_error *err);
 int wt_store_load(const char *path, const wt_grid *lenslets,
 		  const wt_grid *actuators, int pixels_per_lenslet,
 		  wt_calibration **out, wt_error *err);
+
+/**
+ * Read path without checking it against a configuration (to show a file):
+ * the same errors as wt_store_load() except -WT_EMISMATCH.
+ */
+int wt_store_read(const char *path, wt_calibration **out, wt_error *err);
 
 #endif /* WT_STORE_H */

@@ -819,6 +819,216 @@ static void response_norms_match_blas(void **state)
 	assert_int_equal(wt_calib_response_norms(NULL, m, n, norm), -EINVAL);
 }
 
+
+/* --- Hadamard patterns ---------------------------------------------------- */
+
+/* Sylvester's closed form H[p][k] = (-1)^popcount(p & k) (Sylvester 1867). */
+static int sylvester(int p, int k)
+{
+	return __builtin_popcount((unsigned)(p & k)) % 2 ? -1 : 1;
+}
+
+static void hadamard_recovers_matrix_around_a_flat(void **state)
+{
+	const int m = 30, n = 11, N = 16; /* N: next power of two */
+	wt_calib_params prm = {.amplitude = 0.05,
+			       .settle = 2,
+			       .average = 2,
+			       .patterns = WT_CALIB_HADAMARD};
+	struct plant p;
+	wt_calib *c;
+	float *flat = flat_of(n, 0.0);
+	long frames;
+	int j;
+
+	(void)state;
+	wt_rng_seed(wt_test_seed(41));
+	plant_init(&p, m, n, 2, 0.0);
+	for (j = 0; j < n; j++) {
+		flat[j] = (float)(0.3 * wt_rng_gauss());
+	}
+	assert_int_equal(wt_calib_create(n, m, &c, NULL), 0);
+	assert_int_equal(wt_calib_start(c, WT_CALIB_MATRIX, &prm, flat, NULL,
+					NULL, NULL),
+			 0);
+	frames = run(c, &p);
+	/* 2N states of settle + average frames, and the first frame. */
+	assert_int_equal(frames, 1 + 2 * N * (prm.settle + prm.average));
+	assert_int_equal(frames, wt_calib_frames(WT_CALIB_MATRIX, &prm, n));
+	/* Decoding a linear plant is exact (H^T H = N I, Hadamard 1893); only
+	 * the float32 slopes limit it. */
+	assert_true(max_abs_diff(wt_calib_interaction(c), p.D,
+				 (size_t)m * n) < 1e-4);
+	wt_calib_destroy(c);
+	plant_free(&p);
+	free(flat);
+}
+
+static void hadamard_commands_are_the_sylvester_signs(void **state)
+{
+	const int m = 4, n = 5, N = 8;
+	const double a = 0.25;
+	wt_calib_params prm = {.amplitude = a,
+			       .settle = 0,
+			       .average = 1,
+			       .patterns = WT_CALIB_HADAMARD};
+	float *flat = flat_of(n, 0.1);
+	float s[4] = {0}, cmd[5];
+	wt_calib *c;
+	int k, j, rc = WT_CALIB_RUNNING;
+
+	(void)state;
+	assert_int_equal(wt_calib_create(n, m, &c, NULL), 0);
+	assert_int_equal(wt_calib_start(c, WT_CALIB_MATRIX, &prm, flat, NULL,
+					NULL, NULL),
+			 0);
+	for (k = 0; k < 2 * N; k++) {
+		rc = wt_calib_step(c, s, NULL, cmd);
+		assert_int_equal(rc, WT_CALIB_RUNNING);
+		for (j = 0; j < n; j++) {
+			int sign = (k % 2 ? -1 : 1) * sylvester(k / 2, j);
+
+			assert_float_equal(cmd[j], 0.1 + sign * a, 1e-6);
+		}
+	}
+	assert_int_equal(wt_calib_step(c, s, NULL, cmd), WT_CALIB_DONE);
+	for (j = 0; j < n; j++) {
+		assert_float_equal(cmd[j], 0.1, 1e-7);
+	}
+	wt_calib_destroy(c);
+	free(flat);
+}
+
+/* Error variance of a run against the plant's D, times the frames spent. */
+static double variance_times_frames(int m, int n, int patterns, int average,
+				    unsigned seed)
+{
+	const double sigma = 0.02, a = 0.1;
+	wt_calib_params prm = {.amplitude = a,
+			       .settle = 0,
+			       .average = average,
+			       .patterns = patterns};
+	struct plant p;
+	wt_calib *c;
+	float *flat = flat_of(n, 0.0);
+	const double *D;
+	double ss = 0;
+	long frames;
+	int i;
+
+	wt_rng_seed(wt_test_seed(seed));
+	plant_init(&p, m, n, 1, sigma);
+	assert_int_equal(wt_calib_create(n, m, &c, NULL), 0);
+	assert_int_equal(wt_calib_start(c, WT_CALIB_MATRIX, &prm, flat, NULL,
+					NULL, NULL),
+			 0);
+	frames = run(c, &p) - 1; /* the first frame measures nothing */
+	D = wt_calib_interaction(c);
+	for (i = 0; i < m * n; i++) {
+		ss += (D[i] - p.D[i]) * (D[i] - p.D[i]);
+	}
+	wt_calib_destroy(c);
+	plant_free(&p);
+	free(flat);
+	return ss / (m * n) * (double)frames;
+}
+
+static void hadamard_divides_variance_per_frame_by_n(void **state)
+{
+	/* The weighing-design result (Harwit & Sloane 1979, Hadamard
+	 * Transform Optics, ch. 1; Kasper et al. 2004, JOSA A 21, 1004): at
+	 * equal frames, each entry's error variance is n times smaller than
+	 * one actuator at a time, for n = 16 (a power of two) and n = 12
+	 * (N = 16: the order cancels).  6000+ entries each: the variance
+	 * ratio is known to ~3% (chi-square), 10% allowed as in the issue. */
+	static const int ns[] = {16, 12};
+	size_t t;
+
+	(void)state;
+	for (t = 0; t < sizeof(ns) / sizeof(ns[0]); t++) {
+		int n = ns[t], m = 400;
+		double single = variance_times_frames(m, n, WT_CALIB_SINGLE, 8,
+						      51 + (unsigned)t);
+		double had = variance_times_frames(m, n, WT_CALIB_HADAMARD, 8,
+						   61 + (unsigned)t);
+
+		assert_float_equal(single / had / n, 1.0, 0.10);
+	}
+}
+
+static void noise_is_the_pooled_frame_noise(void **state)
+{
+	const int m = 200, n = 6;
+	const double sigma = 0.03;
+	wt_calib_params prm = {.amplitude = 0.1,
+			       .settle = 1,
+			       .average = 5,
+			       .patterns = WT_CALIB_HADAMARD};
+	struct plant p;
+	wt_calib *c;
+	float *flat = flat_of(n, 0.0);
+	double *rms = malloc(sizeof(double) * m), all = 0;
+
+	(void)state;
+	assert_non_null(rms);
+	wt_rng_seed(wt_test_seed(71));
+	plant_init(&p, m, n, 1, sigma);
+	assert_int_equal(wt_calib_create(n, m, &c, NULL), 0);
+	assert_int_equal(wt_calib_noise(c, rms, &all), -ENODATA);
+	assert_int_equal(wt_calib_start(c, WT_CALIB_MATRIX, &prm, flat, NULL,
+					NULL, NULL),
+			 0);
+	run(c, &p);
+	assert_int_equal(wt_calib_noise(c, rms, &all), 0);
+	/* 16 states x 4 degrees of freedom x 200 slopes: the pooled
+	 * standard deviation is within ~1% of sigma (chi-square, any
+	 * statistics handbook); one slope's within ~9%, 40% allowed. */
+	assert_float_equal(all / sigma, 1.0, 0.05);
+	assert_float_equal(rms[7] / sigma, 1.0, 0.4);
+	/* One frame per pattern: no spread to pool. */
+	prm.average = 1;
+	assert_int_equal(wt_calib_start(c, WT_CALIB_MATRIX, &prm, flat, NULL,
+					NULL, NULL),
+			 0);
+	run(c, &p);
+	assert_int_equal(wt_calib_noise(c, rms, &all), -ENODATA);
+	wt_calib_destroy(c);
+	plant_free(&p);
+	free(flat);
+	free(rms);
+}
+
+static void hadamard_refuses_patterns_beyond_the_limits(void **state)
+{
+	const int n = 4;
+	wt_calib_params prm = {.amplitude = 0.3,
+			       .settle = 0,
+			       .average = 1,
+			       .patterns = WT_CALIB_HADAMARD};
+	float flat[4] = {0, 0, 0.8, 0}, lo[4], hi[4];
+	wt_calib *c;
+	wt_error err;
+	int j;
+
+	(void)state;
+	for (j = 0; j < n; j++) {
+		lo[j] = -1;
+		hi[j] = 1;
+	}
+	assert_int_equal(wt_calib_create(n, 8, &c, NULL), 0);
+	assert_int_equal(wt_calib_start(c, WT_CALIB_MATRIX, &prm, flat, lo, hi,
+					&err),
+			 -ERANGE);
+	assert_non_null(strstr(err.msg, "actuator 2"));
+	assert_non_null(strstr(err.msg, "hadamard"));
+	prm.patterns = 7;
+	flat[2] = 0;
+	assert_int_equal(wt_calib_start(c, WT_CALIB_MATRIX, &prm, flat, lo, hi,
+					&err),
+			 -EINVAL);
+	wt_calib_destroy(c);
+}
+
 static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(recovers_interaction_matrix_of_linear_plant),
 	cmocka_unit_test(recovers_matrix_around_a_non_zero_flat),
@@ -835,6 +1045,11 @@ static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(refuses_pokes_beyond_the_limits),
 	cmocka_unit_test(refuses_bad_arguments),
 	cmocka_unit_test(response_norms_match_blas),
+	cmocka_unit_test(hadamard_recovers_matrix_around_a_flat),
+	cmocka_unit_test(hadamard_commands_are_the_sylvester_signs),
+	cmocka_unit_test(hadamard_divides_variance_per_frame_by_n),
+	cmocka_unit_test(noise_is_the_pooled_frame_noise),
+	cmocka_unit_test(hadamard_refuses_patterns_beyond_the_limits),
 };
 
 WT_TEST_MAIN(tests)

@@ -640,6 +640,209 @@ static void check_accepts_its_own_geometry(void **state)
 	rig_free(&other);
 }
 
+
+/* --- the calibration report ----------------------------------------------- */
+
+/* A calibration with a report computed from its (random) matrix, with a
+ * crossed pair set by hand so that partners are stored too. */
+static wt_calibration *with_report(const struct rig *r)
+{
+	wt_calibration *c = filled(r);
+	wt_calib_params p = {.amplitude = 0.2,
+			     .settle = 1,
+			     .average = 3,
+			     .patterns = WT_CALIB_HADAMARD};
+	wt_diag_report *d;
+
+	assert_int_equal(wt_calreport_compute(c->interaction, r->lenslets,
+					      r->actuators, &p, 7, 0.02,
+					      &c->report, NULL),
+			 0);
+	d = c->report->diag;
+	d->act[1].flags = WT_DIAG_SWAPPED;
+	d->act[1].partner = 4;
+	d->act[4].flags = WT_DIAG_SWAPPED;
+	d->act[4].partner = 1;
+	d->act[2].flags = WT_DIAG_DEAD;
+	d->act[3].cx = NAN; /* a zero response has no centroid */
+	return c;
+}
+
+static void report_round_trip_keeps_every_value(void **state)
+{
+	struct rig r;
+	wt_calibration *c, *back = NULL;
+	const char *path = file_in_dir("report.h5");
+	const wt_diag_report *a, *b;
+
+	(void)state;
+	rng_state = wt_test_seed(37);
+	rig_make(&r, 10, 0.0, 9, WT_LAYOUT_CORNERS, 12);
+	c = with_report(&r);
+	assert_int_equal(wt_store_save(path, c, NULL), 0);
+	assert_int_equal(wt_store_load(path, r.lenslets, r.actuators, r.ppl,
+				       &back, NULL),
+			 0);
+	assert_non_null(back->report);
+	a = c->report->diag;
+	b = back->report->diag;
+	assert_int_equal(back->report->patterns, WT_CALIB_HADAMARD);
+	assert_true(back->report->amplitude == 0.2);
+	assert_int_equal(back->report->settle, 1);
+	assert_int_equal(back->report->average, 3);
+	assert_int_equal(back->report->missing, 7);
+	assert_true(back->report->noise_rms == 0.02);
+	assert_true(back->report->matrix_noise == c->report->matrix_noise);
+	assert_int_equal(b->modes, a->modes);
+	assert_string_equal(b->modes_reason, a->modes_reason);
+	assert_memory_equal(b->sv, a->sv, sizeof(double) * (size_t)a->n_sv);
+	assert_true(b->shift_x == a->shift_x && b->rotation_deg ==
+		    a->rotation_deg && b->fit_rms == a->fit_rms);
+	for (int k = 0; k < a->n_act; k++) {
+		assert_true(b->act[k].norm == a->act[k].norm);
+		assert_true(b->act[k].expected_norm == a->act[k].expected_norm);
+		assert_true(b->act[k].coverage == a->act[k].coverage);
+		assert_int_equal(b->act[k].flags, a->act[k].flags);
+		assert_int_equal(b->act[k].partner, a->act[k].partner);
+		assert_int_equal(b->act[k].interior, a->act[k].interior);
+		assert_true(b->act[k].cy == a->act[k].cy);
+		assert_true(b->act[k].ex == a->act[k].ex);
+	}
+	assert_true(isnan(b->act[3].cx));
+	/* Counts are recounted from the flags on reading. */
+	assert_int_equal(b->n_swapped, 2);
+	assert_int_equal(b->n_dead, 1);
+	wt_calibration_destroy(back);
+	wt_calibration_destroy(c);
+	rig_free(&r);
+}
+
+static void file_without_report_still_loads(void **state)
+{
+	struct rig r;
+	wt_calibration *c, *back = NULL;
+	const char *path = file_in_dir("noreport.h5");
+
+	(void)state;
+	rng_state = wt_test_seed(38);
+	rig_make(&r, 8, 0.0, 7, WT_LAYOUT_CORNERS, 10);
+	c = filled(&r); /* as every file written before reports */
+	assert_null(c->report);
+	assert_int_equal(wt_store_save(path, c, NULL), 0);
+	assert_int_equal(wt_store_load(path, r.lenslets, r.actuators, r.ppl,
+				       &back, NULL),
+			 0);
+	assert_null(back->report);
+	wt_calibration_destroy(back);
+	assert_int_equal(wt_store_read(path, &back, NULL), 0);
+	assert_null(back->report);
+	assert_int_equal(back->n_act, c->n_act);
+	wt_calibration_destroy(back);
+	wt_calibration_destroy(c);
+	rig_free(&r);
+}
+
+/* Save a report, damage it through plain HDF5, expect the reason. */
+static void expect_damage(const struct rig *r, void (*damage)(hid_t f),
+			  const char *why)
+{
+	wt_calibration *c = with_report(r), *back = NULL;
+	const char *path = file_in_dir("damaged.h5");
+	wt_error err;
+	hid_t f;
+
+	assert_int_equal(wt_store_save(path, c, NULL), 0);
+	f = H5Fopen(path, H5F_ACC_RDWR, H5P_DEFAULT);
+	assert_true(f >= 0);
+	damage(f);
+	H5Fclose(f);
+	assert_int_equal(wt_store_load(path, r->lenslets, r->actuators, r->ppl,
+				       &back, &err),
+			 -EINVAL);
+	assert_null(back);
+	assert_non_null(strstr(err.msg, "damaged report"));
+	if (!strstr(err.msg, why)) {
+		fail_msg("'%s' does not say '%s'", err.msg, why);
+	}
+	assert_int_equal(wt_store_read(path, &back, &err), -EINVAL);
+	assert_null(back);
+	wt_calibration_destroy(c);
+}
+
+static void write_ints(hid_t f, const char *name, const int *v)
+{
+	hid_t ds = H5Dopen2(f, name, H5P_DEFAULT);
+
+	assert_true(ds >= 0);
+	assert_true(H5Dwrite(ds, H5T_NATIVE_INT, H5S_ALL, H5S_ALL, H5P_DEFAULT,
+			     v) >= 0);
+	H5Dclose(ds);
+}
+
+static int act_count(hid_t f)
+{
+	hid_t ds = H5Dopen2(f, "report/flags", H5P_DEFAULT);
+	hid_t sp = H5Dget_space(ds);
+	int n = (int)H5Sget_simple_extent_npoints(sp);
+
+	H5Sclose(sp);
+	H5Dclose(ds);
+	return n;
+}
+
+static void unknown_flag(hid_t f)
+{
+	int v[256] = {0};
+
+	assert_true(act_count(f) <= 256);
+	v[0] = 64;
+	write_ints(f, "report/flags", v);
+}
+
+static void one_sided_partner(hid_t f)
+{
+	int v[256];
+	int n = act_count(f);
+
+	for (int k = 0; k < n; k++) {
+		v[k] = -1;
+	}
+	v[1] = 4; /* still flagged swapped, but 4 no longer names 1 */
+	write_ints(f, "report/partner", v);
+}
+
+static void missing_attribute(hid_t f)
+{
+	assert_true(H5Adelete_by_name(f, "report", "modes", H5P_DEFAULT) >= 0);
+}
+
+static void missing_dataset(hid_t f)
+{
+	assert_true(H5Ldelete(f, "report/coverage", H5P_DEFAULT) >= 0);
+}
+
+static void modes_beyond_spectrum(hid_t f)
+{
+	int v = 100000;
+
+	assert_true(H5LTset_attribute_int(f, "report", "modes", &v, 1) >= 0);
+}
+
+static void damaged_report_is_refused_with_a_reason(void **state)
+{
+	struct rig r;
+
+	(void)state;
+	rng_state = wt_test_seed(39);
+	rig_make(&r, 10, 0.0, 9, WT_LAYOUT_CORNERS, 12);
+	expect_damage(&r, unknown_flag, "unknown flag bits");
+	expect_damage(&r, one_sided_partner, "no partner naming it back");
+	expect_damage(&r, missing_attribute, "'modes'");
+	expect_damage(&r, missing_dataset, "report/coverage");
+	expect_damage(&r, modes_beyond_spectrum, "recommends 100000 modes");
+	rig_free(&r);
+}
+
 static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(round_trip_keeps_every_value),
 	cmocka_unit_test(layout_is_readable_by_plain_hdf5),
@@ -657,6 +860,9 @@ static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(refuses_foreign_and_missing_files),
 	cmocka_unit_test(save_refuses_what_load_would_refuse),
 	cmocka_unit_test(check_accepts_its_own_geometry),
+	cmocka_unit_test(report_round_trip_keeps_every_value),
+	cmocka_unit_test(file_without_report_still_loads),
+	cmocka_unit_test(damaged_report_is_refused_with_a_reason),
 };
 
 WT_TEST_MAIN(tests)

@@ -118,9 +118,9 @@ def check(cond, what):
     print(("ok   " if cond else "FAIL ") + what, flush=True)
     (passed if cond else failures).append(what)
 
-def ask(*words):
+def ask(*words, opts=()):
     """One request through the built CLI; the daemon's result or None."""
-    r = subprocess.run([cli, "-c", ini, "--json"] + list(words),
+    r = subprocess.run([cli, "-c", ini, "--json", *opts] + list(words),
                        capture_output=True, text=True, timeout=20)
     try:
         reply = json.loads(r.stdout)
@@ -163,7 +163,7 @@ if os.path.exists(calfile):
     ok = ask("load", calfile) is not None
 else:
     how = "measured"
-    ok = ask("calibrate") is not None
+    ok = ask("calibrate", opts=("--no-wait",)) is not None
 end = time.monotonic() + 40
 while ok and time.monotonic() < end:
     status = ask("status") or {}

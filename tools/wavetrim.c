@@ -4,6 +4,12 @@
  *   wavetrim [OPTIONS] WORD...        send one control request, print reply
  *   wavetrim [OPTIONS] watch [-n N]   print a line per status message
  *   wavetrim [OPTIONS] snapshot FILE  draw the live panels to FILE.png|.svg
+ *   wavetrim [OPTIONS] calibrate [single|hadamard]
+ *                                     calibrate, wait, print the report
+ *                                     (--no-wait: print the reply only)
+ *   wavetrim [--json] calibration show FILE
+ *                                     print a calibration file's report
+ *                                     (no daemon needed)
  *
  * The request is the words joined by spaces (a word holding a space or a
  * quote is sent double-quoted); the reply is one JSON object.  By default the
@@ -22,9 +28,11 @@
 #include <cblas.h>
 #include <zmq.h>
 
+#include "wt_calreport.h"
 #include "wt_config.h"
 #include "wt_draw.h"
 #include "wt_jsonparse.h"
+#include "wt_store.h"
 
 #define REQUEST_MAX 4096
 #define REPLY_MAX   (1 << 20)
@@ -48,6 +56,12 @@ static void usage(FILE *out)
 		"       wavetrim [OPTIONS] snapshot FILE.png|FILE.svg\n"
 		"                                       draw the live panels "
 		"to a file\n"
+		"       wavetrim [OPTIONS] calibrate [single|hadamard]\n"
+		"                                       calibrate, wait for "
+		"it, print the report\n"
+		"       wavetrim [--json] calibration show FILE\n"
+		"                                       print the report and "
+		"summary of a file\n"
 		"\n"
 		"options:\n"
 		"  -c, --config FILE       read the daemon's endpoints from "
@@ -57,6 +71,8 @@ static void usage(FILE *out)
 		"  -t, --telemetry ENDPOINT telemetry endpoint (for watch)\n"
 		"      --json              print the daemon's JSON reply "
 		"unchanged\n"
+		"      --no-wait           calibrate: print the reply, do not "
+		"wait for the report\n"
 		"  -w, --timeout MS        give up after MS milliseconds "
 		"(default 5000)\n"
 		"  -h, --help              this text\n"
@@ -415,6 +431,201 @@ out:
 	return rc;
 }
 
+/*
+ * calibrate: subscribe to events first (so the report cannot be missed),
+ * send the request, then wait for the `calibration` event and print its
+ * report.  Any telemetry message restarts the timeout, so a long
+ * calibration is waited for as long as the daemon is alive.
+ */
+static int do_calibrate_wait(void *ctx, const char *control,
+			     const char *telemetry, const char *line, int json,
+			     int timeout_ms)
+{
+	static const char ev[] = "event ", st[] = "status ";
+	void *sock = zmq_socket(ctx, ZMQ_SUB);
+	char *msg = malloc(REPLY_MAX + 1), *reply = NULL;
+	wt_jtok *t = malloc(sizeof(*t) * TOKENS_MAX);
+	int zero = 0, slice = 100, idle = 0, rc = 2;
+
+	if (!sock || !msg || !t) {
+		fprintf(stderr, "wavetrim: out of memory\n");
+		goto out;
+	}
+	zmq_setsockopt(sock, ZMQ_LINGER, &zero, sizeof(zero));
+	zmq_setsockopt(sock, ZMQ_RCVTIMEO, &slice, sizeof(slice));
+	zmq_setsockopt(sock, ZMQ_SUBSCRIBE, ev, strlen(ev));
+	zmq_setsockopt(sock, ZMQ_SUBSCRIBE, st, strlen(st));
+	if (zmq_connect(sock, telemetry) != 0) {
+		fprintf(stderr, "wavetrim: cannot connect to %s: %s\n",
+			telemetry, zmq_strerror(errno));
+		goto out;
+	}
+	/* A SUB connection takes a moment before it receives anything:
+	 * wait for the first status message before asking. */
+	while (!stop_flag && idle < timeout_ms) {
+		int len = zmq_recv(sock, msg, REPLY_MAX, 0);
+
+		if (len >= (int)strlen(st) &&
+		    strncmp(msg, st, strlen(st)) == 0) {
+			break;
+		}
+		idle += len < 0 ? slice : 0;
+	}
+	rc = do_request(ctx, control, line, timeout_ms, OUT_KEEP, &reply);
+	if (rc != 0) {
+		if (rc == 1) {
+			/* Refused: print the reason as a plain request
+			 * would. */
+			rc = do_request(ctx, control, line, timeout_ms,
+					json ? OUT_JSON : OUT_HUMAN, NULL);
+		}
+		goto out;
+	}
+	if (!json) {
+		printf("calibrating...\n");
+		fflush(stdout);
+	}
+	rc = 2;
+	idle = 0;
+	while (!stop_flag && idle < timeout_ms) {
+		int len = zmq_recv(sock, msg, REPLY_MAX, 0), n, name, rep;
+		char what[64] = "";
+		const char *body = msg + strlen(ev);
+
+		if (len < 0) {
+			idle += slice;
+			continue;
+		}
+		idle = 0;
+		if (len > REPLY_MAX || (size_t)len < strlen(ev) ||
+		    strncmp(msg, ev, strlen(ev)) != 0) {
+			continue;
+		}
+		msg[len] = '\0';
+		n = wt_jsonp_parse(body, strlen(body), t, TOKENS_MAX, NULL);
+		name = n > 0 ? wt_jsonp_member(body, t, 0, "event") : -1;
+		if (name < 0 ||
+		    wt_jsonp_string(body, &t[name], what, sizeof(what)) < 0) {
+			continue;
+		}
+		if (strcmp(what, "calibration_aborted") == 0 ||
+		    strcmp(what, "warning") == 0) {
+			fprintf(stderr, "wavetrim: %s\n", body);
+			if (strcmp(what, "calibration_aborted") == 0) {
+				rc = 1;
+				goto out;
+			}
+			continue;
+		}
+		if (strcmp(what, "calibration") != 0) {
+			continue;
+		}
+		if (json) {
+			puts(body);
+			rc = 0;
+			goto out;
+		}
+		rep = wt_jsonp_member(body, t, 0, "report");
+		if (rep < 0 || t[rep].type != WT_JSON_OBJECT) {
+			printf("calibration done (no report)\n");
+			rc = 0;
+			goto out;
+		}
+		rc = wt_calreport_print(stdout, body + t[rep].start,
+					(size_t)(t[rep].end - t[rep].start),
+					NULL) == 0
+			     ? 0
+			     : 2;
+		goto out;
+	}
+	fprintf(stderr,
+		"wavetrim: no calibration report from %s (nothing heard for "
+		"%d ms)\n",
+		telemetry, timeout_ms);
+out:
+	free(reply);
+	free(t);
+	free(msg);
+	if (sock) {
+		zmq_close(sock);
+	}
+	return rc;
+}
+
+/* calibration show FILE: the file's summary and report, no daemon. */
+static int do_show(const char *path, int json)
+{
+	wt_calibration *c = NULL;
+	wt_error err;
+	char *buf = NULL;
+	size_t cap;
+	wt_json j;
+	int rc = 2, n;
+
+	if (wt_store_read(path, &c, &err) < 0) {
+		fprintf(stderr, "wavetrim: %s\n", err.msg);
+		return 2;
+	}
+	cap = 8192 + 32 * (size_t)c->n_sv + wt_calreport_json_size(c->report);
+	buf = malloc(cap);
+	if (!buf) {
+		fprintf(stderr, "wavetrim: out of memory\n");
+		goto out;
+	}
+	wt_json_init(&j, buf, cap);
+	wt_json_object_begin(&j);
+	wt_json_key(&j, "file");
+	wt_json_string(&j, path);
+	wt_json_key(&j, "created");
+	wt_json_string(&j, c->created);
+	wt_json_key(&j, "slopes");
+	wt_json_int(&j, c->n_slopes);
+	wt_json_key(&j, "actuators");
+	wt_json_int(&j, c->n_act);
+	wt_json_key(&j, "modes");
+	wt_json_int(&j, c->modes);
+	wt_json_key(&j, "singular_values");
+	wt_json_double_array(&j, c->singular_values, (size_t)c->n_sv, 8);
+	wt_json_key(&j, "report");
+	if (c->report) {
+		wt_calreport_json(&j, c->report);
+	} else {
+		wt_json_null(&j);
+	}
+	wt_json_object_end(&j);
+	n = wt_json_finish(&j);
+	if (n < 0) {
+		fprintf(stderr, "wavetrim: report too long\n");
+		goto out;
+	}
+	if (json) {
+		puts(buf);
+		rc = 0;
+		goto out;
+	}
+	printf("file:        %s\n", path);
+	printf("created:     %s\n", c->created[0] ? c->created : "?");
+	printf("size:        %d slopes x %d actuators, %d modes in the "
+	       "control matrix\n",
+	       c->n_slopes, c->n_act, c->modes);
+	if (!c->report) {
+		printf("report:      none (the file was written before "
+		       "calibration reports)\n");
+		rc = 0;
+		goto out;
+	}
+	wt_json_init(&j, buf, cap);
+	wt_calreport_json(&j, c->report);
+	n = wt_json_finish(&j);
+	rc = n > 0 && wt_calreport_print(stdout, buf, (size_t)n, &err) == 0
+		     ? 0
+		     : 2;
+out:
+	free(buf);
+	wt_calibration_destroy(c);
+	return rc;
+}
+
 int main(int argc, char **argv)
 {
 	static const struct option longopts[] = {
@@ -422,6 +633,7 @@ int main(int argc, char **argv)
 		{"control", required_argument, NULL, 'e'},
 		{"telemetry", required_argument, NULL, 't'},
 		{"json", no_argument, NULL, 'j'},
+		{"no-wait", no_argument, NULL, 'n'},
 		{"timeout", required_argument, NULL, 'w'},
 		{"help", no_argument, NULL, 'h'},
 		{NULL, 0, NULL, 0},
@@ -432,6 +644,7 @@ int main(int argc, char **argv)
 	const char *telemetry = NULL;
 	const char *config_path = NULL;
 	int json = 0;
+	int no_wait = 0;
 	int timeout_ms = 5000;
 	int rc = 2;
 	int opt;
@@ -456,6 +669,9 @@ int main(int argc, char **argv)
 		case 'j':
 			json = 1;
 			break;
+		case 'n':
+			no_wait = 1;
+			break;
 		case 'w':
 			timeout_ms = atoi(optarg);
 			if (timeout_ms <= 0) {
@@ -475,6 +691,15 @@ int main(int argc, char **argv)
 	if (optind >= argc) {
 		usage(stderr);
 		return 2;
+	}
+	if (strcmp(argv[optind], "calibration") == 0) {
+		if (argc - optind != 3 ||
+		    strcmp(argv[optind + 1], "show") != 0) {
+			fprintf(stderr,
+				"wavetrim: usage: calibration show FILE\n");
+			return 2;
+		}
+		return do_show(argv[optind + 2], json);
 	}
 	if (wt_config_create(&cfg, &err) != 0) {
 		fprintf(stderr, "wavetrim: %s\n", err.msg);
@@ -532,6 +757,11 @@ int main(int argc, char **argv)
 					     : "too long");
 			goto out;
 		}
+	}
+	if (strcmp(argv[optind], "calibrate") == 0 && !no_wait) {
+		rc = do_calibrate_wait(ctx, control, telemetry, line, json,
+				       timeout_ms);
+		goto out;
 	}
 	rc = do_request(ctx, control, line, timeout_ms,
 			json ? OUT_JSON : OUT_HUMAN, NULL);

@@ -9,7 +9,12 @@
  * their attributes, the config text) one byte picks the correct form or a
  * deviation (missing, wrong class, wrong rank or shape, not scalar,
  * non-finite values, values out of range, variable-length strings, ...),
- * and a last byte may damage the written file (flip bytes, truncate).  The
+ * an optional byte in [200, 224) adds the /report group (copied from a
+ * file wt_store_save() wrote at start-up) whole or with one deviation (an
+ * unknown flag bit, a one-sided partner, an attribute or dataset missing,
+ * a dataset of the wrong length, modes beyond the spectrum, a NaN norm:
+ * all refused), and a last byte may damage the written file (flip bytes,
+ * truncate).  No report at all is allowed (files written before reports).  The
  * file is written with the plain HDF5 API to a temporary folder (tmpfs
  * where there is one) and read with wt_store_load().
  *
@@ -44,9 +49,10 @@
 enum verdict { ALLOWED = 0, EITHER = 1, REFUSED = 2 };
 
 static struct {
-	char dir[64], path[96], path2[96];
+	char dir[64], path[96], path2[96], report_src[96];
 	wt_grid *lenslets, *actuators;
 	wt_calibration *base; /* the correct content */
+	wt_calreport *report; /* the correct /report of report_src */
 } g;
 
 /* The decisions, and what the builder wrote. */
@@ -66,6 +72,7 @@ struct build {
 	char *config; /* written config text, up to a NUL */
 	char created[32];
 	bool strings_known;
+	int report_form; /* -1 none, 0 whole, 1.. a deviation */
 };
 
 static unsigned byte(struct build *b)
@@ -93,6 +100,7 @@ static void remove_dir(void)
 	unlink(g.path);
 	rmdir(g.path); /* when a run put a folder there */
 	unlink(g.path2);
+	unlink(g.report_src);
 	rmdir(g.dir);
 }
 
@@ -150,6 +158,33 @@ int LLVMFuzzerInitialize(int *argc, char ***argv)
 	}
 	snprintf(c->created, sizeof(c->created), "2024-05-06T07:08:09Z");
 	g.base = c;
+	/* A report of the base matrix, with a crossed pair so that partners
+	 * are written, saved once: the builder copies its /report group. */
+	{
+		wt_calib_params p = {.amplitude = 0.1,
+				     .settle = 1,
+				     .average = 2,
+				     .patterns = WT_CALIB_HADAMARD};
+
+		snprintf(g.report_src, sizeof(g.report_src), "%s/report.h5",
+			 g.dir);
+		if (wt_calreport_compute(c->interaction, g.lenslets,
+					 g.actuators, &p, 0, 0.01, &g.report,
+					 &err)) {
+			fprintf(stderr, "fuzz_store: report: %s\n", err.msg);
+			abort();
+		}
+		g.report->diag->act[0].flags = WT_DIAG_SWAPPED;
+		g.report->diag->act[0].partner = 2;
+		g.report->diag->act[2].flags = WT_DIAG_SWAPPED;
+		g.report->diag->act[2].partner = 0;
+		c->report = g.report;
+		if (wt_store_save(g.report_src, c, &err)) {
+			fprintf(stderr, "fuzz_store: %s\n", err.msg);
+			abort();
+		}
+		c->report = NULL;
+	}
 	return 0;
 }
 
@@ -619,6 +654,85 @@ static hid_t positions(struct build *b, hid_t geo, const char *name,
 }
 
 /* Write the whole file as the decisions say. */
+/* The /report group, copied whole, then one deviation by b->report_form. */
+static void report_group(struct build *b, hid_t f)
+{
+	hid_t src = H5Fopen(g.report_src, H5F_ACC_RDONLY, H5P_DEFAULT);
+	int n = g.report->diag->n_act, ints[64];
+	double v[64];
+	hsize_t dims[1] = {(hsize_t)n - 1};
+	hid_t ds;
+
+	if (src < 0 || n > 64 ||
+	    H5Ocopy(src, "report", f, "report", H5P_DEFAULT, H5P_DEFAULT) <
+		    0) {
+		abort();
+	}
+	H5Fclose(src);
+	if (b->report_form != 0) {
+		judge(b, REFUSED); /* every deviation below is refused */
+	}
+	switch (b->report_form) {
+	case 1: /* a flag bit no version knows */
+		for (int k = 0; k < n; k++) {
+			ints[k] = (int)g.report->diag->act[k].flags;
+		}
+		ints[n - 1] |= 1 << 9;
+		ds = H5Dopen2(f, "report/flags", H5P_DEFAULT);
+		H5Dwrite(ds, H5T_NATIVE_INT, H5S_ALL, H5S_ALL, H5P_DEFAULT,
+			 ints);
+		H5Dclose(ds);
+		break;
+	case 2: /* 0 swapped with 2, but 2 names 1 */
+		for (int k = 0; k < n; k++) {
+			ints[k] = g.report->diag->act[k].partner;
+		}
+		ints[2] = 1;
+		ds = H5Dopen2(f, "report/partner", H5P_DEFAULT);
+		H5Dwrite(ds, H5T_NATIVE_INT, H5S_ALL, H5S_ALL, H5P_DEFAULT,
+			 ints);
+		H5Dclose(ds);
+		break;
+	case 3:
+		H5Adelete_by_name(f, "report", "noise_rms", H5P_DEFAULT);
+		break;
+	case 4:
+		H5Ldelete(f, "report/expected_centroid", H5P_DEFAULT);
+		break;
+	case 5: /* one actuator short */
+		H5Ldelete(f, "report/norm", H5P_DEFAULT);
+		for (int k = 0; k < n; k++) {
+			v[k] = g.report->diag->act[k].norm;
+		}
+		ds = put_dataset(f, "report/norm", H5T_IEEE_F64LE,
+				 H5T_NATIVE_DOUBLE, 1, dims, v, true);
+		if (ds >= 0) {
+			H5Dclose(ds);
+		}
+		break;
+	case 6: {
+		hid_t grp = H5Gopen2(f, "report", H5P_DEFAULT);
+		int modes = g.report->diag->n_sv + 1;
+
+		H5Adelete(grp, "modes");
+		put_attr(grp, "modes", H5T_STD_I32LE, H5T_NATIVE_INT, 0, NULL,
+			 &modes);
+		H5Gclose(grp);
+		break;
+	}
+	case 7: /* a norm that is no number */
+		for (int k = 0; k < n; k++) {
+			v[k] = g.report->diag->act[k].norm;
+		}
+		v[1] = NAN;
+		ds = H5Dopen2(f, "report/norm", H5P_DEFAULT);
+		H5Dwrite(ds, H5T_NATIVE_DOUBLE, H5S_ALL, H5S_ALL, H5P_DEFAULT,
+			 v);
+		H5Dclose(ds);
+		break;
+	}
+}
+
 static void build_file(struct build *b)
 {
 	const wt_calibration *c = g.base;
@@ -726,6 +840,11 @@ static void build_file(struct build *b)
 	}
 	if (!string_obj(b, f, "config", b->config, true, REFUSED)) {
 		b->strings_known = false;
+	}
+	b->report_form = -1;
+	if (b->i < b->n && b->d[b->i] >= 200 && b->d[b->i] < 224) {
+		b->report_form = (byte(b) - 200) % 8;
+		report_group(b, f);
 	}
 	if (H5Fclose(f) < 0) {
 		abort();
@@ -931,6 +1050,21 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
 					  (size_t)c->n_act * sizeof(float)),
 		   "flat differs from the file's%s",
 		   b.damaged ? " (damaged file)" : "");
+	/* the report: there exactly when one was written (a damaged one
+	 * is refused, not dropped), the one written when the file is whole */
+	FUZZ_CHECK((out->report != NULL) == (b.report_form == 0),
+		   "report %s, the builder wrote form %d",
+		   out->report ? "loaded" : "absent", b.report_form);
+	if (out->report && !b.damaged) {
+		for (int k = 0; k < out->n_act; k++) {
+			FUZZ_CHECK(out->report->diag->act[k].flags ==
+						   g.report->diag->act[k].flags &&
+					   out->report->diag->act[k].partner ==
+						   g.report->diag->act[k]
+							   .partner,
+				   "report of actuator %d differs", k);
+		}
+	}
 	if (!b.damaged) {
 		/* attributes and strings carry no checksum: compared only
 		 * when the file is whole */
@@ -950,7 +1084,8 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
 	rc = wt_store_save(g.path2, out, &err);
 	FUZZ_CHECK(rc == 0, "a loaded calibration does not save: %s", err.msg);
 	rc = wt_store_load(g.path2, g.lenslets, g.actuators, PPL, &again, &err);
-	FUZZ_CHECK(rc == 0 && same_calibration(out, again),
+	FUZZ_CHECK(rc == 0 && same_calibration(out, again) &&
+			   (again->report != NULL) == (out->report != NULL),
 		   "saved calibration loads back different (%d: %s)", rc,
 		   err.msg);
 	FUZZ_CHECK(H5Fget_obj_count(H5F_OBJ_ALL, H5F_OBJ_ALL) == 0,
