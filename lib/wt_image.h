@@ -21,6 +21,9 @@
 #define WT_IMAGE_TOPIC	      "image "
 /** Largest side of a published image, in (binned) pixels. */
 #define WT_IMAGE_SIDE_MAX 128
+/** Largest image record (after the topic). */
+#define WT_IMAGE_BYTES_MAX                                                     \
+	(WT_IMAGE_HEADER_BYTES + 2 * WT_IMAGE_SIDE_MAX * WT_IMAGE_SIDE_MAX)
 
 /** The 48-byte header of an image record; on a little-endian host this
  * struct is the wire layout byte for byte. */
