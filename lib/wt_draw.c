@@ -1794,8 +1794,12 @@ static uint32_t cmap_rgb(const struct ctx *x, enum wt_cmap map, double t)
 	return (uint32_t)p[0] << 16 | (uint32_t)p[1] << 8 | p[2];
 }
 
-/* Smallest 1, 2, 2.5 or 5 times a power of ten that is >= v (v > 0). */
 static double nice_ceil(double v)
+{
+	return wt_draw_nice_ceil(v);
+}
+
+double wt_draw_nice_ceil(double v)
 {
 	static const double steps[] = {1, 2, 2.5, 5, 10};
 	double p;

@@ -72,6 +72,10 @@ void wt_draw_cmap(enum wt_cmap map, double t, double rgb[3]);
 /** The map as WT_CMAP_SIZE entries of 8-bit sRGB (entry k is t = k/255). */
 void wt_draw_cmap_table(enum wt_cmap map, uint8_t table[WT_CMAP_SIZE][3]);
 
+/** The smallest 1, 2, 2.5 or 5 times a power of ten that is >= v: the
+ * full scale of colour bars and axes (1 for v <= 0 or not finite). */
+double wt_draw_nice_ceil(double v);
+
 /* --- checksums and PNG ---------------------------------------------------- */
 
 /**
