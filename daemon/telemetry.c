@@ -612,11 +612,10 @@ static int drain_images(struct wtd *d)
 	int n = 0;
 
 	while ((s = wt_ring_peek(d->image_ring))) {
-		int len = wt_image_encode((const uint16_t *)(s + 1),
-					  (unsigned)d->frame_side,
-					  (unsigned)d->frame_side, s->frame_id,
-					  s->recv_ns, s->state, t->img + 6,
-					  t->img_cap - 6);
+		int len = wt_image_encode(
+			(const uint16_t *)(s + 1), (unsigned)d->frame_side,
+			(unsigned)d->frame_side, s->frame_id, s->recv_ns,
+			s->state, t->img + 6, t->img_cap - 6);
 
 		if (len > 0) {
 			memcpy(t->img, WT_IMAGE_TOPIC, 6);

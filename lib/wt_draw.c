@@ -1059,7 +1059,7 @@ struct wt_draw_scene {
 	int sv_cap;
 	wt_draw_point *hist;
 	int since_frame, since_truth;
-	uint16_t *image;      /* WT_IMAGE_SIDE_MAX^2 */
+	uint16_t *image;	  /* WT_IMAGE_SIDE_MAX^2 */
 	double *lat, *lat_sorted; /* WT_DRAW_LAT_WINDOW, ring of samples */
 	int lat_next;
 	uint8_t *act_flags;
@@ -1688,9 +1688,9 @@ static void latency_stats(wt_draw_scene *s)
 	}
 	memcpy(s->lat_sorted, s->lat, sizeof(double) * (size_t)n);
 	qsort(s->lat_sorted, (size_t)n, sizeof(double), cmp_double);
-	in->lat_median_us = n % 2 ? s->lat_sorted[n / 2]
-				  : 0.5 * (s->lat_sorted[n / 2 - 1] +
-					   s->lat_sorted[n / 2]);
+	in->lat_median_us =
+		n % 2 ? s->lat_sorted[n / 2]
+		      : 0.5 * (s->lat_sorted[n / 2 - 1] + s->lat_sorted[n / 2]);
 	in->lat_p99_us = s->lat_sorted[(int)ceil(0.99 * n) - 1];
 	in->lat_max_us = s->lat_sorted[n - 1];
 }
@@ -2248,10 +2248,9 @@ static void panel_latency(struct ctx *x, double px, double py)
 		}
 		for (int d = d0; d <= d1; d++) {
 			double lx = gx + (double)(d - d0) / (d1 - d0) * gw;
-			static const char *const units[] = {"1 us", "10 us",
-							    "100 us", "1 ms",
-							    "10 ms", "100 ms",
-							    "1 s"};
+			static const char *const units[] = {
+				"1 us",	 "10 us",  "100 us", "1 ms",
+				"10 ms", "100 ms", "1 s"};
 
 			x->c->ops->line(x->c, lx, gy + gh, lx, gy + gh + 4,
 					GREY, 1);
@@ -2270,16 +2269,23 @@ static void panel_latency(struct ctx *x, double px, double py)
 	     num(c, sizeof(c), in->lat_max_us, 3));
 	{
 		static const char *const names[] = {
-			"received",	  "dropped", "stale",
+			"received",	  "dropped",  "stale",
 			"refused",	  "bad size", "wrong kind",
 			"rejected",	  "not sent", "telemetry lost",
 			"clipped frames", "faults",
 		};
 		long long v[] = {
-			st->received,  st->dropped,	      st->stale,
-			st->refused,   st->bad_dimensions,    st->wrong_kind,
-			st->rejected,  st->send_failed,	      st->telemetry_dropped,
-			st->clipped_frames, st->faults,
+			st->received,
+			st->dropped,
+			st->stale,
+			st->refused,
+			st->bad_dimensions,
+			st->wrong_kind,
+			st->rejected,
+			st->send_failed,
+			st->telemetry_dropped,
+			st->clipped_frames,
+			st->faults,
 		};
 
 		for (size_t k = 0; k < sizeof(v) / sizeof(v[0]); k++) {
@@ -2578,8 +2584,8 @@ static void draw_all(struct cv *c, const wt_draw_scene *s, const char *title)
 	header(&x, title);
 	for (int k = 0; k < 8; k++) {
 		static void (*const draw[8])(struct ctx *, double, double) = {
-			panel_image,   panel_slopes,  panel_wavefront,
-			panel_command, panel_history, panel_latency,
+			panel_image,   panel_slopes,	panel_wavefront,
+			panel_command, panel_history,	panel_latency,
 			panel_sv,      panel_actuators,
 		};
 		static const char *const ids[8] = {WT_DRAW_PANEL_IDS};

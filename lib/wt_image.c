@@ -23,9 +23,8 @@ unsigned wt_image_bin_for(unsigned side)
 
 size_t wt_image_record_bytes(unsigned sensor_width, unsigned sensor_height)
 {
-	unsigned b = wt_image_bin_for(sensor_width > sensor_height
-					      ? sensor_width
-					      : sensor_height);
+	unsigned b = wt_image_bin_for(
+		sensor_width > sensor_height ? sensor_width : sensor_height);
 	size_t w = (sensor_width + b - 1) / b, h = (sensor_height + b - 1) / b;
 
 	return WT_IMAGE_HEADER_BYTES + 2 * w * h;
@@ -67,7 +66,8 @@ int wt_image_encode(const uint16_t *pix, unsigned width, unsigned height,
 		unsigned y0 = j * b, y1 = y0 + b < height ? y0 + b : height;
 
 		for (unsigned i = 0; i < w; i++) {
-			unsigned x0 = i * b, x1 = x0 + b < width ? x0 + b : width;
+			unsigned x0 = i * b,
+				 x1 = x0 + b < width ? x0 + b : width;
 			uint64_t sum = 0, n = (uint64_t)(x1 - x0) * (y1 - y0);
 			uint16_t v;
 

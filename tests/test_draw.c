@@ -532,26 +532,20 @@ static void snapshot_writes_png_and_svg(void **state)
 		n = wt_image_encode(pix, 256, 256, 3, 0, 2, image,
 				    sizeof(image));
 		assert_int_equal(n, 48 + 2 * 128 * 128);
-		assert_int_equal(wt_draw_snapshot_image(cfg, status, recs,
-							3 * len, image,
-							(size_t)n,
-							tmp_path("snap.svg"),
-							&err),
+		assert_int_equal(wt_draw_snapshot_image(
+					 cfg, status, recs, 3 * len, image,
+					 (size_t)n, tmp_path("snap.svg"), &err),
 				 0);
-		assert_int_equal(wt_draw_snapshot_image(cfg, status, recs,
-							3 * len, image,
-							(size_t)n,
-							tmp_path("snap.png"),
-							&err),
+		assert_int_equal(wt_draw_snapshot_image(
+					 cfg, status, recs, 3 * len, image,
+					 (size_t)n, tmp_path("snap.png"), &err),
 				 0);
 		/* An image of another sensor is refused. */
 		n = wt_image_encode(pix, 128, 128, 3, 0, 2, image,
 				    sizeof(image));
-		assert_int_equal(wt_draw_snapshot_image(cfg, status, recs,
-							3 * len, image,
-							(size_t)n,
-							tmp_path("bad.svg"),
-							&err),
+		assert_int_equal(wt_draw_snapshot_image(
+					 cfg, status, recs, 3 * len, image,
+					 (size_t)n, tmp_path("bad.svg"), &err),
 				 -EPROTO);
 		assert_non_null(strstr(err.msg, "sensor"));
 	}

@@ -26,8 +26,7 @@ static void bin_factor_keeps_images_within_128(void **state)
 	assert_int_equal(wt_image_bin_for(256), 2);
 	assert_int_equal(wt_image_bin_for(257), 3);
 	assert_int_equal(wt_image_bin_for(1000), 8); /* ceil(1000/8) = 125 */
-	assert_int_equal(wt_image_record_bytes(256, 256),
-			 48 + 2 * 128 * 128);
+	assert_int_equal(wt_image_record_bytes(256, 256), 48 + 2 * 128 * 128);
 	assert_int_equal(wt_image_record_bytes(5, 3), 48 + 2 * 5 * 3);
 }
 
@@ -55,9 +54,9 @@ static void block_means_match_numpy(void **state)
 			pix[y * W + x] = (uint16_t)((x * 7 + y * 131) % 4001);
 		}
 	}
-	assert_int_equal(wt_image_encode(pix, W, H, 42, 1234, 2, rec,
-					 sizeof(rec)),
-			 sizeof(rec));
+	assert_int_equal(
+		wt_image_encode(pix, W, H, 42, 1234, 2, rec, sizeof(rec)),
+		sizeof(rec));
 	assert_int_equal(wt_image_decode(rec, sizeof(rec), &h, &px, &err), 0);
 	assert_int_equal(h.width, 87);
 	assert_int_equal(h.height, 87);
@@ -92,7 +91,8 @@ static void block_means_match_numpy(void **state)
 	/* numpy: pad to whole blocks with NaN, nanmean per block, round half
 	 * up; compare with every stored value. */
 	snprintf(cmd, sizeof(cmd),
-		 PYTHON " -c '"
+		 PYTHON
+		 " -c '"
 		 "import numpy as np, sys\n"
 		 "W, H, b = 260, 259, 3\n"
 		 "y, x = np.mgrid[0:H, 0:W]\n"
@@ -134,11 +134,10 @@ static void decode_refuses_bad_records(void **state)
 	float f;
 
 	(void)state;
-	assert_int_equal(wt_image_encode(pix, 4, 4, 1, 2, 0, good,
-					 sizeof(good)),
-			 sizeof(good));
-	assert_int_equal(wt_image_decode(good, sizeof(good), &h, &px, &err),
-			 0);
+	assert_int_equal(
+		wt_image_encode(pix, 4, 4, 1, 2, 0, good, sizeof(good)),
+		sizeof(good));
+	assert_int_equal(wt_image_decode(good, sizeof(good), &h, &px, &err), 0);
 	/* too short for a header */
 	assert_int_equal(wt_image_decode(good, 47, &h, &px, &err), -EPROTO);
 	/* a pixel missing, a pixel too many */

@@ -313,7 +313,8 @@ static int do_snapshot(void *ctx, const wt_config *cfg, const char *control,
 	}
 	rc = 2;
 	records = malloc(rec * (size_t)max_records);
-	msg_cap = skip + (rec > WT_IMAGE_BYTES_MAX ? rec : WT_IMAGE_BYTES_MAX) + 1;
+	msg_cap = skip + (rec > WT_IMAGE_BYTES_MAX ? rec : WT_IMAGE_BYTES_MAX) +
+		  1;
 	msg = malloc(msg_cap);
 	image = malloc(WT_IMAGE_BYTES_MAX);
 	sock = zmq_socket(ctx, ZMQ_SUB);

@@ -297,9 +297,9 @@ struct tick_arg {
 	double status_age_s; /* NaN: never */
 	bool arrays;	     /* send the frame's arrays this time */
 	bool image;	     /* a new sensor image goes with this tick */
-	float *map; /* VIEW_MAP x VIEW_MAP scratch for the wavefront map */
-	uint8_t *img8;	/* WT_IMAGE_SIDE_MAX^2 scratch: the image in 8 bits */
-	char *img64;	/* its base64 */
+	float *map;    /* VIEW_MAP x VIEW_MAP scratch for the wavefront map */
+	uint8_t *img8; /* WT_IMAGE_SIDE_MAX^2 scratch: the image in 8 bits */
+	char *img64;   /* its base64 */
 };
 
 static void bits_json(wt_json *j, const uint8_t *b, size_t n)
@@ -395,8 +395,8 @@ static void image_json(wt_json *j, const struct tick_arg *a)
 	double top = wt_draw_nice_ceil(in->image_max > 0 ? in->image_max : 1);
 
 	for (size_t k = 0; k < n; k++) {
-		a->img8[k] = (uint8_t)lround(fmin(255, in->image[k] * 255.0 /
-							       top));
+		a->img8[k] =
+			(uint8_t)lround(fmin(255, in->image[k] * 255.0 / top));
 	}
 	wt_draw_base64(a->img8, n, a->img64);
 	wt_json_object_begin(j);
@@ -787,9 +787,8 @@ static void tick(struct feed *f, uint64_t start_ns, struct tick_arg *a)
 
 static int run(struct view *v, bool no_truth)
 {
-	static const char *const topics[] = {"status ", "event ",
-					     WT_FRAME_TOPIC, WT_IMAGE_TOPIC,
-					     NULL};
+	static const char *const topics[] = {
+		"status ", "event ", WT_FRAME_TOPIC, WT_IMAGE_TOPIC, NULL};
 	static const char *const truth_topics[] = {"truth", NULL};
 	struct feed f = {.v = v};
 	struct tick_arg *a = calloc(1, sizeof(*a));
@@ -799,8 +798,8 @@ static int run(struct view *v, bool no_truth)
 	if (a) {
 		a->map = calloc(VIEW_MAP * VIEW_MAP, sizeof(*a->map));
 		a->img8 = malloc(WT_IMAGE_SIDE_MAX * WT_IMAGE_SIDE_MAX);
-		a->img64 = malloc(WT_IMAGE_SIDE_MAX * WT_IMAGE_SIDE_MAX / 3 * 4 +
-				  8);
+		a->img64 = malloc(
+			WT_IMAGE_SIDE_MAX * WT_IMAGE_SIDE_MAX / 3 * 4 + 8);
 	}
 	f.image = malloc(WT_IMAGE_BYTES_MAX);
 	if (!a || !a->map || !a->img8 || !a->img64 || !f.image) {
