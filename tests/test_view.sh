@@ -340,6 +340,12 @@ call("Emulation.setDeviceMetricsOverride", width=1400, height=1000,
      deviceScaleFactor=1, mobile=False)
 call("Page.navigate", url=base + "/")
 pump(4)
+# A loaded machine may take longer to bring the page up: wait for the
+# first history points (the server's "hello") before comparing.
+for _ in range(40):
+    if (js("window.wtview ? window.wtview.histLen() : 0") or 0) > 0:
+        break
+    pump(0.5)
 h1 = js("window.wtview ? window.wtview.histLen() : -1")
 t1 = js("window.wtview ? window.wtview.ticks() : -1")
 pump(2)
