@@ -75,7 +75,10 @@ port=$(free_port)
 devtools=$(free_port)
 
 # The demo scenario with this test's endpoints; geometric spots and two
-# frames per poke so that a calibration, when one is needed, takes seconds.
+# frames per poke so that a calibration, when one is needed, takes seconds;
+# a driver timeout of 10 s, since a loaded machine can starve the
+# simulator for more than the demo's second (this test is about the view,
+# not about faults).
 sed -e "s|^frames *=.*|frames = ipc://$tmp/frames|" \
 	-e "s|^commands *=.*|commands = ipc://$tmp/commands|" \
 	-e "s|^control *=.*|control = ipc://$tmp/control|" \
@@ -83,6 +86,7 @@ sed -e "s|^frames *=.*|frames = ipc://$tmp/frames|" \
 	-e "s|^truth *=.*|truth = ipc://$tmp/truth|" \
 	-e "s|^spot_model *=.*|spot_model = geometric|" \
 	-e "s|^average *=.*|average = 2|" \
+	-e "s|^timeout_ms *=.*|timeout_ms = 10000|" \
 	"$src/config/demo.ini" >"$ini"
 for key in frames commands control telemetry truth; do
 	if ! grep -q "^$key = ipc://$tmp/$key\$" "$ini"; then
@@ -232,11 +236,14 @@ def shown(field):
     """The first number of a stats field as the page shows it (None if
     none yet): s-rms the residual slopes RMS in px, s-wf the wavefront RMS
     in nm."""
-    text = js("document.getElementById('%s').textContent" % field) or ""
-    try:
-        return float(text.split()[0])
-    except (ValueError, IndexError):
-        return None
+    # "n/a" while a status period held no frame (a slow machine): retry.
+    for _ in range(20):
+        text = js("document.getElementById('%s').textContent" % field) or ""
+        try:
+            return float(text.split()[0])
+        except (ValueError, IndexError):
+            pump(0.5)
+    return None
 
 # The daemon answers, with frames from the simulator.
 status = None
@@ -258,7 +265,7 @@ if os.path.exists(calfile):
 else:
     how = "measured"
     ok = ask("calibrate") is not None
-end = time.monotonic() + 40
+end = time.monotonic() + 150  # a loaded machine runs the simulator slowly
 while ok and time.monotonic() < end:
     status = ask("status") or {}
     if status.get("state") == "open" and (status.get("modes") or 0) > 0:
