@@ -101,6 +101,14 @@ static void publish_slow(struct wtd_ctl *ctl)
 			     d->cfg, WT_OPT_DRIVER_TIMEOUT_MS) *
 			     WT_NS_PER_MS);
 	atomic_store(
+		&d->image_period_ns,
+		wt_config_double(d->cfg, WT_OPT_DAEMON_IMAGE_HZ) > 0
+			? (unsigned long long)(1e9 /
+					       wt_config_double(
+						       d->cfg,
+						       WT_OPT_DAEMON_IMAGE_HZ))
+			: 0);
+	atomic_store(
 		&d->status_period_ns,
 		(unsigned long long)(1e9 /
 				     wt_config_double(

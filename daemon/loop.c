@@ -76,6 +76,8 @@ struct wtd_loop {
 	uint64_t last_frame_ns;
 	int bad_run, stale_run;
 	uint64_t answered;
+	uint64_t last_image_ns; /* valid when image_sent */
+	bool image_sent;
 };
 
 /* --- set-up --------------------------------------------------------------- */
@@ -654,6 +656,38 @@ static int measure(struct wtd_loop *l, const wt_header *h, const void *payload,
 	return n_bad;
 }
 
+/*
+ * At most daemon.image_hz times a second, a copy of the frame's pixels for
+ * the telemetry thread, which bins and publishes them.  A copy, not a
+ * reference: the message buffer is reused for the next frame.  Skipped when
+ * both slots still wait (never waits itself).
+ */
+static void offer_image(struct wtd_loop *l, const wt_header *h,
+			const void *payload, uint64_t t_recv)
+{
+	struct wtd *d = l->d;
+	uint64_t period =
+		atomic_load_explicit(&d->image_period_ns, memory_order_relaxed);
+	struct wtd_image_slot *s;
+
+	if (period == 0 || !d->image_ring ||
+	    (l->image_sent && t_recv - l->last_image_ns < period)) {
+		return;
+	}
+	s = wt_ring_claim(d->image_ring);
+	if (!s) {
+		return;
+	}
+	s->frame_id = h->sequence;
+	s->recv_ns = t_recv;
+	s->state = (uint32_t)l->state;
+	s->pad = 0;
+	memcpy(s + 1, payload, h->payload_bytes);
+	wt_ring_publish(d->image_ring);
+	l->last_image_ns = t_recv;
+	l->image_sent = true;
+}
+
 static void process(struct wtd_loop *l, const void *data, size_t len,
 		    uint64_t t_recv)
 {
@@ -814,6 +848,9 @@ static void process(struct wtd_loop *l, const void *data, size_t len,
 			       sizeof(float) * (size_t)d->n_act);
 		}
 		wt_ring_publish(d->ring);
+	}
+	if (h.kind == WT_KIND_PIXELS_U16) {
+		offer_image(l, &h, payload, t_recv);
 	}
 	l->answered++;
 	bump(&d->c.answered, 1);

@@ -18,6 +18,7 @@
 #include <zmq.h>
 
 #include "wt_clock.h"
+#include "wt_image.h"
 #include "wtd.h"
 
 /* Latencies kept per period for the median (the maximum sees them all). */
@@ -59,6 +60,8 @@ struct wtd_tm {
 	size_t json_cap;
 	uint8_t *msg; /* frame message */
 	size_t msg_cap;
+	uint8_t *img; /* image message */
+	size_t img_cap;
 };
 
 static const char *const why_names[] = {
@@ -83,6 +86,37 @@ const char *wtd_fault_name(int fault)
 	return fault_names[fault];
 }
 
+/*
+ * The loop's image slots and our message buffer.  Every slot is touched
+ * once here, before the threads start, so that the loop's first copy into
+ * it does not pay for fresh pages.
+ */
+static int image_ring_create(struct wtd *d, wt_error *err)
+{
+	struct wtd_tm *t = d->tm;
+	size_t side = (size_t)d->frame_side;
+	size_t bytes = sizeof(struct wtd_image_slot) + 2 * side * side;
+	int rc, k;
+
+	rc = wt_ring_create(bytes, WTD_IMAGE_SLOTS, &d->image_ring, err);
+	if (rc < 0) {
+		return rc;
+	}
+	for (k = 0; k < WTD_IMAGE_SLOTS; k++) {
+		memset(wt_ring_claim(d->image_ring), 0, bytes);
+		wt_ring_publish(d->image_ring);
+	}
+	while (wt_ring_peek(d->image_ring)) {
+		wt_ring_release(d->image_ring);
+	}
+	t->img_cap = 6 + wt_image_record_bytes((unsigned)side, (unsigned)side);
+	t->img = malloc(t->img_cap);
+	if (!t->img) {
+		return wt_error_set(err, -ENOMEM, "out of memory");
+	}
+	return 0;
+}
+
 int wtd_telemetry_create(struct wtd *d, wt_error *err)
 {
 	struct wtd_tm *t = calloc(1, sizeof(*t));
@@ -101,7 +135,7 @@ int wtd_telemetry_create(struct wtd *d, wt_error *err)
 	if (!t->lat || !t->json || !t->msg) {
 		return wt_error_set(err, -ENOMEM, "out of memory");
 	}
-	return 0;
+	return image_ring_create(d, err);
 }
 
 void wtd_telemetry_destroy(struct wtd *d)
@@ -114,8 +148,11 @@ void wtd_telemetry_destroy(struct wtd *d)
 	free(t->lat);
 	free(t->json);
 	free(t->msg);
+	free(t->img);
 	free(t);
 	d->tm = NULL;
+	wt_ring_destroy(d->image_ring);
+	d->image_ring = NULL;
 }
 
 /* --- status --------------------------------------------------------------- */
@@ -567,6 +604,29 @@ static void end_period(struct wtd *d, uint64_t now)
 	}
 }
 
+/* Bin and publish the images the loop left; returns how many. */
+static int drain_images(struct wtd *d)
+{
+	struct wtd_tm *t = d->tm;
+	const struct wtd_image_slot *s;
+	int n = 0;
+
+	while ((s = wt_ring_peek(d->image_ring))) {
+		int len = wt_image_encode(
+			(const uint16_t *)(s + 1), (unsigned)d->frame_side,
+			(unsigned)d->frame_side, s->frame_id, s->recv_ns,
+			s->state, t->img + 6, t->img_cap - 6);
+
+		if (len > 0) {
+			memcpy(t->img, WT_IMAGE_TOPIC, 6);
+			publish(d, "", t->img, 6 + (size_t)len);
+		}
+		wt_ring_release(d->image_ring);
+		n++;
+	}
+	return n;
+}
+
 /* Drain what the ring holds now; returns the records handled. */
 static int drain_ring(struct wtd *d)
 {
@@ -596,7 +656,7 @@ void *wtd_telemetry_main(void *arg)
 	next = t->period_start_ns + atomic_load(&d->status_period_ns);
 	while (!atomic_load_explicit(&d->tm_stop, memory_order_acquire)) {
 		uint64_t now;
-		int n = drain_ring(d);
+		int n = drain_ring(d) + drain_images(d);
 
 		drain_evq(d);
 		now = wt_clock_ns();

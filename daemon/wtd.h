@@ -100,6 +100,16 @@ struct wtd_slot {
 	wt_frame_record fr;
 };
 
+/** An image slot (ring `image_ring`): the frame's pixels follow, as the
+ * driver sent them (frame_side x frame_side uint16). */
+struct wtd_image_slot {
+	uint64_t frame_id, recv_ns;
+	uint32_t state, pad;
+};
+
+/** Image slots: the loop skips an image while both are taken. */
+#define WTD_IMAGE_SLOTS 2
+
 /** Refusal reasons of wt_proto_decode(), WT_EPROTO_SHORT .. LENGTH. */
 #define WTD_N_REFUSED (WT_EPROTO_LENGTH - WT_EPROTO_SHORT + 1)
 
@@ -203,6 +213,8 @@ struct wtd {
 	atomic_bool tm_stop; /* telemetry stops (after the loop) */
 	atomic_ullong status_period_ns;
 	atomic_ullong driver_timeout_ns; /* for status; the loop has its own */
+	atomic_ullong image_period_ns;	 /* daemon.image_hz; 0: no images */
+	wt_ring *image_ring;		 /* loop -> telemetry; telemetry.c */
 
 	struct wtd_loop *loop;
 	struct wtd_ctl *ctl;

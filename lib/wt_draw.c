@@ -17,6 +17,7 @@
 #include <string.h>
 #include <strings.h>
 
+#include "wt_image.h"
 #include "wt_jsonparse.h"
 #include "wt_request.h"
 #include "wt_zernike.h"
@@ -555,17 +556,14 @@ static void sb_xml(struct sbuf *b, const char *s)
 	}
 }
 
-static void sb_base64(struct sbuf *b, const uint8_t *p, size_t n)
+size_t wt_draw_base64(const uint8_t *p, size_t n, char *out)
 {
 	static const char abc[] = "ABCDEFGHIJKLMNOPQRSTUVWXYZ"
 				  "abcdefghijklmnopqrstuvwxyz0123456789+/";
+	char *o = out;
 
-	if (!sb_reserve(b, (n + 2) / 3 * 4)) {
-		return;
-	}
-	for (size_t i = 0; i < n; i += 3) {
+	for (size_t i = 0; i < n; i += 3, o += 4) {
 		uint32_t v = (uint32_t)p[i] << 16;
-		char *o = b->buf + b->len;
 
 		if (i + 1 < n) {
 			v |= (uint32_t)p[i + 1] << 8;
@@ -577,9 +575,17 @@ static void sb_base64(struct sbuf *b, const uint8_t *p, size_t n)
 		o[1] = abc[(v >> 12) & 63];
 		o[2] = i + 1 < n ? abc[(v >> 6) & 63] : '=';
 		o[3] = i + 2 < n ? abc[v & 63] : '=';
-		b->len += 4;
 	}
-	b->buf[b->len] = '\0';
+	*o = '\0';
+	return (size_t)(o - out);
+}
+
+static void sb_base64(struct sbuf *b, const uint8_t *p, size_t n)
+{
+	if (!sb_reserve(b, (n + 2) / 3 * 4)) {
+		return;
+	}
+	b->len += wt_draw_base64(p, n, b->buf + b->len);
 }
 
 /* --- the canvas ----------------------------------------------------------- */
@@ -615,6 +621,10 @@ struct cv_ops {
 	 * out. */
 	void (*image)(struct cv *c, double x, double y, double w, double h,
 		      const uint8_t *rgba, int iw, int ih);
+	/* A named group (SVG <g id="panel-NAME">) around what follows until
+	 * group_end; nothing in a raster. */
+	void (*group)(struct cv *c, const char *name);
+	void (*group_end)(struct cv *c);
 };
 
 struct cv {
@@ -893,6 +903,17 @@ static void r_image(struct cv *c, double x, double y, double w, double h,
 	}
 }
 
+static void r_group(struct cv *c, const char *name)
+{
+	(void)c;
+	(void)name;
+}
+
+static void r_group_end(struct cv *c)
+{
+	(void)c;
+}
+
 static const struct cv_ops raster_ops = {
 	.rect = r_rect,
 	.line = r_line,
@@ -900,6 +921,8 @@ static const struct cv_ops raster_ops = {
 	.ring = r_ring,
 	.text = r_text,
 	.image = r_image,
+	.group = r_group,
+	.group_end = r_group_end,
 };
 
 /* SVG backend. */
@@ -988,6 +1011,22 @@ static void s_image(struct cv *c, double x, double y, double w, double h,
 	free(png);
 }
 
+static void s_group(struct cv *c, const char *name)
+{
+	struct svg *s = container_of(c, struct svg, base);
+
+	sb_printf(&s->sb, "<g id=\"panel-");
+	sb_xml(&s->sb, name);
+	sb_printf(&s->sb, "\">\n");
+}
+
+static void s_group_end(struct cv *c)
+{
+	struct svg *s = container_of(c, struct svg, base);
+
+	sb_printf(&s->sb, "</g>\n");
+}
+
 static const struct cv_ops svg_ops = {
 	.rect = s_rect,
 	.line = s_line,
@@ -995,6 +1034,8 @@ static const struct cv_ops svg_ops = {
 	.ring = s_ring,
 	.text = s_text,
 	.image = s_image,
+	.group = s_group,
+	.group_end = s_group_end,
 };
 
 /* --- the scene ------------------------------------------------------------ */
@@ -1018,6 +1059,11 @@ struct wt_draw_scene {
 	int sv_cap;
 	wt_draw_point *hist;
 	int since_frame, since_truth;
+	uint16_t *image;	  /* WT_IMAGE_SIDE_MAX^2 */
+	double *lat, *lat_sorted; /* WT_DRAW_LAT_WINDOW, ring of samples */
+	int lat_next;
+	uint8_t *act_flags;
+	int sensor_side; /* pixels: lenslets x pixels per lenslet */
 	wt_draw_info info;
 };
 
@@ -1090,11 +1136,16 @@ int wt_draw_scene_create(const wt_config *cfg, wt_draw_scene **out,
 	s->at_limit = calloc((size_t)s->n_act, 1);
 	s->coef = calloc((size_t)s->info.n_modes, sizeof(double));
 	s->hist = calloc(WT_DRAW_HISTORY_MAX, sizeof(wt_draw_point));
+	s->image = calloc(WT_IMAGE_SIDE_MAX * WT_IMAGE_SIDE_MAX, 2);
+	s->lat = calloc(WT_DRAW_LAT_WINDOW, sizeof(double));
+	s->lat_sorted = calloc(WT_DRAW_LAT_WINDOW, sizeof(double));
+	s->act_flags = calloc((size_t)s->n_act, 1);
 	cx = malloc(sizeof(double) * (size_t)n_sub);
 	cy = malloc(sizeof(double) * (size_t)n_sub);
 	if (!s->G || !s->g_valid || !s->s_valid || !s->slopes || !s->flux ||
 	    !s->command || !s->valid || !s->at_limit || !s->coef || !s->hist ||
-	    !cx || !cy) {
+	    !s->image || !s->lat || !s->lat_sorted || !s->act_flags || !cx ||
+	    !cy) {
 		free(cx);
 		free(cy);
 		rc = wt_error_set(err, -ENOMEM, "draw: out of memory");
@@ -1120,6 +1171,12 @@ int wt_draw_scene_create(const wt_config *cfg, wt_draw_scene **out,
 	s->info.at_limit = s->at_limit;
 	s->info.coef_um = s->coef;
 	s->info.hist = s->hist;
+	s->info.image = s->image;
+	s->info.act_flags = s->act_flags;
+	s->info.pixel_um = pix_um;
+	s->sensor_side = n * p;
+	s->info.lat_median_us = s->info.lat_p99_us = nan_val();
+	s->info.lat_max_us = nan_val();
 	s->info.rms_nm = s->info.strehl = nan_val();
 	s->info.latency_us = s->info.rms_px = nan_val();
 	s->info.truth_rms_nm = s->info.truth_strehl = nan_val();
@@ -1155,6 +1212,10 @@ void wt_draw_scene_destroy(wt_draw_scene *s)
 	free(s->coef);
 	free(s->sv);
 	free(s->hist);
+	free(s->image);
+	free(s->lat);
+	free(s->lat_sorted);
+	free(s->act_flags);
 	free(s);
 }
 
@@ -1312,6 +1373,13 @@ int wt_draw_scene_frame(wt_draw_scene *s, const void *rec, size_t len,
 	return 0;
 }
 
+static int cmp_double(const void *a, const void *b)
+{
+	double x = *(const double *)a, y = *(const double *)b;
+
+	return (x > y) - (x < y);
+}
+
 /* JSON helpers: a member's number (NaN when absent or not a number). */
 static double jnum(const char *js, const wt_jtok *t, int obj, const char *key)
 {
@@ -1392,6 +1460,64 @@ static void take_singular_values(wt_draw_scene *s, const char *js,
 	s->info.sv = s->sv;
 }
 
+/*
+ * Per-actuator flags: every member "KIND_actuators" of the object obj
+ * holding an array of numbers is a kind of flag and the actuators it
+ * names.  Anything else (other members, other shapes, indices out of
+ * range) is ignored, so that fuller reports still read.  Replaces the
+ * flags kept only when the object has at least one such member.
+ */
+static void take_flags(wt_draw_scene *s, const char *js, const wt_jtok *t,
+		       int obj)
+{
+	static const char suffix[] = "_actuators";
+	const size_t sl = sizeof(suffix) - 1;
+	int kinds = 0, m;
+
+	if (obj < 0 || t[obj].type != WT_JSON_OBJECT) {
+		return;
+	}
+	m = obj + 1;
+	for (int k = 0; k < t[obj].size; k++) {
+		int v = t[m].next;
+		char key[64];
+		int kl = wt_jsonp_string(js, &t[m], key, sizeof(key));
+
+		if (kl > (int)sl && strcmp(key + kl - sl, suffix) == 0 &&
+		    t[v].type == WT_JSON_ARRAY && kinds < WT_DRAW_FLAG_KINDS) {
+			wt_draw_info *in = &s->info;
+			int e = v + 1, count = 0;
+
+			if (kinds == 0) {
+				memset(s->act_flags, 0, (size_t)s->n_act);
+			}
+			key[kl - sl] = '\0';
+			key[sizeof(in->flag_names[kinds]) - 1] = '\0';
+			memcpy(in->flag_names[kinds], key, strlen(key) + 1);
+			for (int i = 0; i < t[v].size; i++) {
+				int ok;
+				double x = wt_jsonp_number(js, &t[e], &ok);
+
+				if (ok == 0 && x >= 0 && x < s->n_act &&
+				    x == floor(x) &&
+				    !(s->act_flags[(int)x] & (1u << kinds))) {
+					s->act_flags[(int)x] |=
+						(uint8_t)(1u << kinds);
+					count++;
+				}
+				e = t[e].next;
+			}
+			in->flag_counts[kinds] = count;
+			kinds++;
+		}
+		m = t[v].next;
+	}
+	if (kinds > 0) {
+		s->info.have_flags = true;
+		s->info.n_flag_kinds = kinds;
+	}
+}
+
 int wt_draw_scene_status(wt_draw_scene *s, const char *js, size_t len,
 			 wt_error *err)
 {
@@ -1437,7 +1563,11 @@ int wt_draw_scene_status(wt_draw_scene *s, const char *js, size_t len,
 	st->send_failed = jint(js, t, c, "send_failed");
 	st->telemetry_dropped = jint(js, t, c, "telemetry_dropped");
 	st->clipped_frames = jint(js, t, c, "clipped_frames");
+	st->received = jint(js, t, c, "received");
+	st->wrong_kind = jint(js, t, c, "wrong_kind");
+	st->faults = jint(js, t, c, "faults");
 	c = wt_jsonp_member(js, t, o, "calibration");
+	take_flags(s, js, t, c);
 	st->recommended = (int)jint(js, t, c, "recommended");
 	st->condition = jnum(js, t, c, "condition");
 	take_singular_values(s, js, t,
@@ -1476,9 +1606,93 @@ int wt_draw_scene_event(wt_draw_scene *s, const char *js, size_t len)
 			s, js, t, wt_jsonp_member(js, t, 0, "singular_values"));
 		s->info.status.recommended = (int)jint(js, t, 0, "recommended");
 		s->info.status.condition = jnum(js, t, 0, "condition");
+		take_flags(s, js, t, 0);
 	}
 	free(t);
 	return name[0] ? 0 : -EINVAL;
+}
+
+int wt_draw_scene_image(wt_draw_scene *s, const void *rec, size_t len,
+			wt_error *err)
+{
+	wt_image_record h;
+	const uint8_t *px;
+	int rc = wt_image_decode(rec, len, &h, &px, err);
+
+	if (rc == 0 && (h.sensor_width != (uint32_t)s->sensor_side ||
+			h.sensor_height != (uint32_t)s->sensor_side)) {
+		rc = wt_error_set(err, -EPROTO,
+				  "image of a %ux%u sensor, expected %dx%d",
+				  h.sensor_width, h.sensor_height,
+				  s->sensor_side, s->sensor_side);
+	}
+	if (rc < 0) {
+		s->info.bad_records++;
+		return rc;
+	}
+	memcpy(s->image, px, 2 * (size_t)h.width * h.height);
+	s->info.image_max = 0;
+	for (size_t k = 0; k < (size_t)h.width * h.height; k++) {
+		s->image[k] = (uint16_t)lroundf((float)s->image[k] * h.scale);
+		s->info.image_max = fmax(s->info.image_max, s->image[k]);
+	}
+	s->info.have_image = true;
+	s->info.image_frame = h.frame_id;
+	s->info.image_w = (int)h.width;
+	s->info.image_h = (int)h.height;
+	s->info.image_bin = (int)h.bin;
+	s->info.sensor_w = (int)h.sensor_width;
+	s->info.sensor_h = (int)h.sensor_height;
+	return 0;
+}
+
+void wt_draw_scene_timing(wt_draw_scene *s, const void *rec, size_t len)
+{
+	wt_draw_info *in = &s->info;
+	wt_frame_record h;
+	double us;
+	int bin;
+
+	if (len < WT_FRAME_HEADER_BYTES) {
+		return;
+	}
+	memcpy(&h, rec, sizeof(h));
+	if (memcmp(h.magic, WT_FRAME_MAGIC, 4) != 0 ||
+	    h.version != WT_FRAME_VERSION || h.send_ns < h.recv_ns) {
+		return;
+	}
+	us = (double)(h.send_ns - h.recv_ns) / 1e3;
+	if (in->lat_n == WT_DRAW_LAT_WINDOW) {
+		double old = s->lat[s->lat_next];
+
+		bin = old < 1 ? 0 : (int)floor(10 * log10(old));
+		in->lat_counts[bin < WT_DRAW_LAT_BINS ? bin
+						      : WT_DRAW_LAT_BINS - 1]--;
+	} else {
+		in->lat_n++;
+	}
+	s->lat[s->lat_next] = us;
+	s->lat_next = (s->lat_next + 1) % WT_DRAW_LAT_WINDOW;
+	bin = us < 1 ? 0 : (int)floor(10 * log10(us));
+	in->lat_counts[bin < WT_DRAW_LAT_BINS ? bin : WT_DRAW_LAT_BINS - 1]++;
+}
+
+/* Median, 99th percentile (nearest rank) and maximum of the window. */
+static void latency_stats(wt_draw_scene *s)
+{
+	wt_draw_info *in = &s->info;
+	int n = in->lat_n;
+
+	if (n == 0) {
+		return;
+	}
+	memcpy(s->lat_sorted, s->lat, sizeof(double) * (size_t)n);
+	qsort(s->lat_sorted, (size_t)n, sizeof(double), cmp_double);
+	in->lat_median_us =
+		n % 2 ? s->lat_sorted[n / 2]
+		      : 0.5 * (s->lat_sorted[n / 2 - 1] + s->lat_sorted[n / 2]);
+	in->lat_p99_us = s->lat_sorted[(int)ceil(0.99 * n) - 1];
+	in->lat_max_us = s->lat_sorted[n - 1];
 }
 
 void wt_draw_scene_truth(wt_draw_scene *s, uint64_t frame, double rms_nm,
@@ -1514,6 +1728,7 @@ void wt_draw_scene_sample(wt_draw_scene *s, double t_s)
 	if (s->since_truth <= FRESH_SAMPLES) {
 		s->since_truth++;
 	}
+	latency_stats(s);
 }
 
 int wt_draw_scene_map(const wt_draw_scene *s, int m, bool extend, float *out,
@@ -1553,8 +1768,8 @@ int wt_draw_scene_map(const wt_draw_scene *s, int m, bool extend, float *out,
 
 /* --- panels --------------------------------------------------------------- */
 
-#define PIC_W	 1260
-#define PIC_H	 848
+#define PIC_W	 WT_DRAW_WIDTH
+#define PIC_H	 WT_DRAW_HEIGHT
 #define HEADER_H 56
 #define PANEL_W	 408
 #define PANEL_H	 384
@@ -1579,8 +1794,12 @@ static uint32_t cmap_rgb(const struct ctx *x, enum wt_cmap map, double t)
 	return (uint32_t)p[0] << 16 | (uint32_t)p[1] << 8 | p[2];
 }
 
-/* Smallest 1, 2, 2.5 or 5 times a power of ten that is >= v (v > 0). */
 static double nice_ceil(double v)
+{
+	return wt_draw_nice_ceil(v);
+}
+
+double wt_draw_nice_ceil(double v)
 {
 	static const double steps[] = {1, 2, 2.5, 5, 10};
 	double p;
@@ -1706,6 +1925,35 @@ static void no_data(struct ctx *x, double px, double py, const char *why)
 	     GREY, "%s", why);
 }
 
+/*
+ * A length bar at the lower left of a map of the sensor (the lenslet grid
+ * spans the sensor): a nice length of about a tenth of its width, on a
+ * white label so that it reads over any colour.
+ */
+static void length_bar(struct ctx *x, double px, double py)
+{
+	const wt_draw_info *in = x->in;
+	double total_um = x->s->sensor_side * in->pixel_um, l_um, w;
+	char lab[32];
+
+	if (!(total_um > 0)) {
+		return;
+	}
+	l_um = nice_ceil(0.1 * total_um);
+	w = l_um / total_um * MAP_S;
+	if (l_um >= 1000) {
+		snprintf(lab, sizeof(lab), "%g mm", l_um / 1000);
+	} else {
+		snprintf(lab, sizeof(lab), "%g um", l_um);
+	}
+	x->c->ops->rect(x->c, px + MAP_X + 2, py + MAP_Y + MAP_S - 24,
+			fmax(w, text_width(lab, 1)) + 8, 22, PAPER);
+	x->c->ops->rect(x->c, px + MAP_X + 6, py + MAP_Y + MAP_S - 8, w, 3,
+			INK);
+	x->c->ops->text(x->c, px + MAP_X + 6, py + MAP_Y + MAP_S - 12, LEFT, 1,
+			INK, lab);
+}
+
 /* Lenslet cells: pupil coordinates to pixels (the grid spans the pupil). */
 static void cell_rect(const struct ctx *x, int k, double px, double py,
 		      double *cx, double *cy, double *side)
@@ -1755,6 +2003,7 @@ static void panel_slopes(struct ctx *x, double px, double py)
 		      cy + in->slopes[n + k] * scale, INK, 0.3 * side);
 	}
 	/* Scale bar: one arrow of the reference length. */
+	length_bar(x, px, py);
 	arrow(x, px + BAR_X, py + MAP_Y + 30, px + BAR_X + ref * scale,
 	      py + MAP_Y + 30, INK, 0.3 * side);
 	text(x, px + BAR_X, py + MAP_Y + 14, LEFT, 1, INK, "scale");
@@ -1803,6 +2052,7 @@ static void panel_wavefront(struct ctx *x, double px, double py)
 	x->c->ops->image(x->c, px + MAP_X, py + MAP_Y, MAP_S, MAP_S, img, M, M);
 	free(map);
 	free(img);
+	length_bar(x, px, py);
 	colorbar(x, px + BAR_X, py + MAP_Y + 14, MAP_S - 28, WT_CMAP_COOLWARM,
 		 -top, top, "nm");
 	text(x, px + 12, py + CAPTION_1, LEFT, 1, INK,
@@ -1892,9 +2142,215 @@ static void panel_flux(struct ctx *x, double px, double py)
 		no_data(x, px, py, "the driver sends slopes: no flux");
 	}
 	text(x, px + 12, py + CAPTION_1, LEFT, 1, INK,
-	     "in place of the sensor image: the daemon");
+	     "no sensor image (daemon.image_hz 0, or slopes");
 	text(x, px + 12, py + CAPTION_2, LEFT, 1, GREY,
-	     "publishes no pixels. x: under min_flux (%g)", x->s->min_flux);
+	     "from the driver). x: under min_flux (%g)", x->s->min_flux);
+}
+
+/* The sensor image (viridis, counts) under the subaperture grid: valid
+ * subapertures outlined, invalid ones crossed out.  Without an image: the
+ * flux per subaperture. */
+static void panel_image(struct ctx *x, double px, double py)
+{
+	const wt_draw_info *in = x->in;
+	int w = in->image_w, h = in->image_h, n = in->lenslets->n_valid;
+	double top, cx, cy, side, sw, sh;
+	uint8_t *img;
+
+	if (!in->have_image) {
+		panel_flux(x, px, py);
+		length_bar(x, px, py);
+		return;
+	}
+	panel(x, px, py, "Sensor image");
+	top = nice_ceil(in->image_max > 0 ? in->image_max : 1);
+	img = malloc(4 * (size_t)w * (size_t)h);
+	if (img) {
+		for (int k = 0; k < w * h; k++) {
+			uint32_t c = cmap_rgb(x, WT_CMAP_VIRIDIS,
+					      in->image[k] / top);
+
+			img[4 * k] = (uint8_t)(c >> 16);
+			img[4 * k + 1] = (uint8_t)(c >> 8);
+			img[4 * k + 2] = (uint8_t)c;
+			img[4 * k + 3] = 255;
+		}
+		/* The last column and row may stand for fewer pixels. */
+		sw = MAP_S * (double)w * in->image_bin / in->sensor_w;
+		sh = MAP_S * (double)h * in->image_bin / in->sensor_h;
+		x->c->ops->image(x->c, px + MAP_X, py + MAP_Y, sw, sh, img, w,
+				 h);
+		free(img);
+	}
+	for (int k = 0; k < n; k++) {
+		bool ok = !in->have_frame || in->valid[k];
+
+		cell_rect(x, k, px, py, &cx, &cy, &side);
+		if (ok) {
+			box(x, cx - side / 2, cy - side / 2, side, side,
+			    0x9aa0a6u);
+		} else {
+			x->c->ops->line(x->c, cx - side / 3, cy - side / 3,
+					cx + side / 3, cy + side / 3, ALERT,
+					1.5);
+			x->c->ops->line(x->c, cx - side / 3, cy + side / 3,
+					cx + side / 3, cy - side / 3, ALERT,
+					1.5);
+		}
+	}
+	length_bar(x, px, py);
+	colorbar(x, px + BAR_X, py + MAP_Y + 14, MAP_S - 28, WT_CMAP_VIRIDIS, 0,
+		 top, "counts");
+	text(x, px + 12, py + CAPTION_1, LEFT, 1, INK,
+	     "frame %llu: %dx%d of %dx%d px (bin %d)",
+	     (unsigned long long)in->image_frame, w, h, in->sensor_w,
+	     in->sensor_h, in->image_bin);
+	text(x, px + 12, py + CAPTION_2, LEFT, 1, GREY,
+	     "grid: subapertures; x: under min_flux (%g)", x->s->min_flux);
+}
+
+/* Latency histogram (log axis) and the daemon's counters. */
+static void panel_latency(struct ctx *x, double px, double py)
+{
+	const wt_draw_info *in = x->in;
+	const wt_draw_status *st = &in->status;
+	double gx = px + 40, gw = PANEL_W - 56, gy = py + 50, gh = 130;
+	int lo = WT_DRAW_LAT_BINS, hi = -1;
+	uint32_t big = 0;
+	char a[32], b[32], c[32];
+
+	panel(x, px, py, "Latency and counters");
+	for (int k = 0; k < WT_DRAW_LAT_BINS; k++) {
+		if (in->lat_counts[k]) {
+			lo = k < lo ? k : lo;
+			hi = k;
+			big = in->lat_counts[k] > big ? in->lat_counts[k] : big;
+		}
+	}
+	x->c->ops->line(x->c, gx, gy + gh, gx + gw, gy + gh, GREY, 1);
+	x->c->ops->line(x->c, gx, gy, gx, gy + gh, GREY, 1);
+	if (hi < 0) {
+		text(x, gx + gw / 2, gy + gh / 2, MIDDLE, 1, GREY,
+		     "no frame records yet");
+	} else {
+		/* Whole decades around the bins used. */
+		int d0 = lo / 10, d1 = hi / 10 + 1;
+		int nb = 10 * (d1 - d0);
+
+		for (int k = 10 * d0; k < 10 * d1; k++) {
+			double bh = (double)in->lat_counts[k] / big * gh;
+			double bx = gx + (double)(k - 10 * d0) / nb * gw;
+
+			if (bh > 0) {
+				x->c->ops->rect(x->c, bx + 0.5, gy + gh - bh,
+						gw / nb - 1, bh, ACCENT);
+			}
+		}
+		for (int d = d0; d <= d1; d++) {
+			double lx = gx + (double)(d - d0) / (d1 - d0) * gw;
+			static const char *const units[] = {
+				"1 us",	 "10 us",  "100 us", "1 ms",
+				"10 ms", "100 ms", "1 s"};
+
+			x->c->ops->line(x->c, lx, gy + gh, lx, gy + gh + 4,
+					GREY, 1);
+			text(x, lx, gy + gh + 15, MIDDLE, 1, INK, "%s",
+			     units[d]);
+		}
+		text(x, gx - 4, gy + 8, RIGHT, 1, INK, "%u", big);
+		text(x, gx - 4, gy + gh, RIGHT, 1, INK, "0");
+	}
+	text(x, gx + 4, gy - 6, LEFT, 1, INK,
+	     "receive -> send, last %d frame records", in->lat_n);
+	text(x, px + 12, py + 216, LEFT, 1, INK,
+	     "median %s us   99%% %s us   max %s us",
+	     num(a, sizeof(a), in->lat_median_us, 3),
+	     num(b, sizeof(b), in->lat_p99_us, 3),
+	     num(c, sizeof(c), in->lat_max_us, 3));
+	{
+		static const char *const names[] = {
+			"received",	  "dropped",  "stale",
+			"refused",	  "bad size", "wrong kind",
+			"rejected",	  "not sent", "telemetry lost",
+			"clipped frames", "faults",
+		};
+		long long v[] = {
+			st->received,
+			st->dropped,
+			st->stale,
+			st->refused,
+			st->bad_dimensions,
+			st->wrong_kind,
+			st->rejected,
+			st->send_failed,
+			st->telemetry_dropped,
+			st->clipped_frames,
+			st->faults,
+		};
+
+		for (size_t k = 0; k < sizeof(v) / sizeof(v[0]); k++) {
+			double tx = px + 12 + (k % 2) * (PANEL_W / 2.0);
+			double ty = py + 240 + 14 * (double)(k / 2);
+
+			text(x, tx, ty, LEFT, 1,
+			     k > 0 && v[k] > 0 && k != 9 ? ALERT : INK,
+			     "%-15s %s", names[k],
+			     st->known ? num(a, sizeof(a), (double)v[k], 6)
+				       : "n/a");
+		}
+	}
+	text(x, px + 12, py + CAPTION_2, LEFT, 1, GREY,
+	     "counts since the daemon started (status)");
+}
+
+/* Colours of the flag kinds: distinct from the grey of unflagged ones. */
+static const uint32_t flag_colours[WT_DRAW_FLAG_KINDS] = {
+	ALERT, 0xe08a00u, 0x7d3c98u, 0x1f77b4u, 0x2e8b57u, 0x8c564bu,
+};
+
+/* The actuator layout with the calibration's per-actuator flags. */
+static void panel_actuators(struct ctx *x, double px, double py)
+{
+	const wt_draw_info *in = x->in;
+	const wt_grid *g = in->actuators;
+	double half = MAP_S / 2.0, rpx, ox = px + MAP_X + half;
+	double oy = py + MAP_Y + half;
+	int flagged = 0;
+
+	panel(x, px, py, "Actuator flags");
+	rpx = half / fmax(1, g->n * g->pitch / 2);
+	x->c->ops->ring(x->c, ox, oy, rpx, GREY, 1);
+	for (int k = 0; k < g->n_valid; k++) {
+		double cx = ox + g->x[k] * rpx, cy = oy + g->y[k] * rpx;
+		double r = 0.42 * g->pitch * rpx;
+		uint32_t col = PALE;
+
+		for (int f = 0; f < in->n_flag_kinds; f++) {
+			if (in->act_flags[k] & (1u << f)) {
+				col = flag_colours[f];
+				break;
+			}
+		}
+		flagged += col != PALE;
+		x->c->ops->disc(x->c, cx, cy, r, col);
+	}
+	if (!in->have_flags) {
+		no_data(x, px, py, "no calibration report seen");
+	}
+	for (int f = 0; f < in->n_flag_kinds; f++) {
+		double ly = py + MAP_Y + 20 + 18 * f;
+
+		x->c->ops->disc(x->c, px + BAR_X + 6, ly - 3, 5,
+				flag_colours[f]);
+		text(x, px + BAR_X + 16, ly, LEFT, 1, INK, "%.9s %d",
+		     in->flag_names[f], in->flag_counts[f]);
+	}
+	text(x, px + 12, py + CAPTION_1, LEFT, 1, INK,
+	     in->have_flags ? "%d of %d actuators flagged"
+			    : "flags come with the calibration event",
+	     flagged, g->n_valid);
+	text(x, px + 12, py + CAPTION_2, LEFT, 1, GREY,
+	     "of the calibration report (e.g. weak: under 1/4 median)");
 }
 
 /* Value of one field of history point k. */
@@ -2126,12 +2582,19 @@ static void draw_all(struct cv *c, const wt_draw_scene *s, const char *title)
 	wt_draw_cmap_table(WT_CMAP_COOLWARM, x.maps[WT_CMAP_COOLWARM]);
 	c->ops->rect(c, 0, 0, PIC_W, PIC_H, 0xeceff1u);
 	header(&x, title);
-	panel_slopes(&x, GAP, top);
-	panel_wavefront(&x, 2 * GAP + PANEL_W, top);
-	panel_command(&x, 3 * GAP + 2 * PANEL_W, top);
-	panel_flux(&x, GAP, top + PANEL_H + GAP);
-	panel_history(&x, 2 * GAP + PANEL_W, top + PANEL_H + GAP);
-	panel_sv(&x, 3 * GAP + 2 * PANEL_W, top + PANEL_H + GAP);
+	for (int k = 0; k < 8; k++) {
+		static void (*const draw[8])(struct ctx *, double, double) = {
+			panel_image,   panel_slopes,	panel_wavefront,
+			panel_command, panel_history,	panel_latency,
+			panel_sv,      panel_actuators,
+		};
+		static const char *const ids[8] = {WT_DRAW_PANEL_IDS};
+
+		c->ops->group(c, ids[k]);
+		draw[k](&x, GAP + (k % 4) * (GAP + PANEL_W),
+			top + (k / 4) * (PANEL_H + GAP));
+		c->ops->group_end(c);
+	}
 }
 
 int wt_draw_scene_render(const wt_draw_scene *s, enum wt_draw_format format,
@@ -2235,6 +2698,15 @@ int wt_draw_snapshot(const wt_config *cfg, const char *status_json,
 		     const void *records, size_t records_len, const char *path,
 		     wt_error *err)
 {
+	return wt_draw_snapshot_image(cfg, status_json, records, records_len,
+				      NULL, 0, path, err);
+}
+
+int wt_draw_snapshot_image(const wt_config *cfg, const char *status_json,
+			   const void *records, size_t records_len,
+			   const void *image, size_t image_len,
+			   const char *path, wt_error *err)
+{
 	wt_draw_scene *s;
 	const uint8_t *p = records;
 	size_t rec;
@@ -2266,9 +2738,16 @@ int wt_draw_snapshot(const wt_config *cfg, const char *status_json,
 		if (rc < 0) {
 			goto out;
 		}
+		wt_draw_scene_timing(s, p + off, rec);
 		memcpy(&ns, p + off + offsetof(wt_frame_record, recv_ns),
 		       sizeof(ns));
 		wt_draw_scene_sample(s, (double)ns / 1e9);
+	}
+	if (image) {
+		rc = wt_draw_scene_image(s, image, image_len, err);
+		if (rc < 0) {
+			goto out;
+		}
 	}
 	rc = wt_draw_scene_save(s, path, path, err);
 out:

@@ -72,6 +72,10 @@ void wt_draw_cmap(enum wt_cmap map, double t, double rgb[3]);
 /** The map as WT_CMAP_SIZE entries of 8-bit sRGB (entry k is t = k/255). */
 void wt_draw_cmap_table(enum wt_cmap map, uint8_t table[WT_CMAP_SIZE][3]);
 
+/** The smallest 1, 2, 2.5 or 5 times a power of ten that is >= v: the
+ * full scale of colour bars and axes (1 for v <= 0 or not finite). */
+double wt_draw_nice_ceil(double v);
+
 /* --- checksums and PNG ---------------------------------------------------- */
 
 /**
@@ -83,6 +87,12 @@ uint32_t wt_draw_crc32(uint32_t crc, const void *buf, size_t len);
 
 /** Adler-32 of RFC 1950: pass adler = 1 to start, or the previous result. */
 uint32_t wt_draw_adler32(uint32_t adler, const void *buf, size_t len);
+
+/**
+ * Base64 (RFC 4648 section 4, with padding) of in[0 .. n) into out, which
+ * must hold 4 * ceil(n / 3) + 1 bytes; NUL-terminated.  Returns the length.
+ */
+size_t wt_draw_base64(const uint8_t *in, size_t n, char *out);
 
 /**
  * Encode a width x height image of 8-bit samples, channels 3 (RGB) or 4
@@ -124,9 +134,18 @@ typedef struct wt_draw_status {
 	double residual_rms_px, gain, leak; /**< NaN: n/a */
 	long long frames, dropped, refused, stale, bad_dimensions, rejected;
 	long long send_failed, telemetry_dropped, clipped_frames;
+	long long received, wrong_kind, faults;
 	int modes, recommended, invalid_subapertures, clipped_actuators;
 	double condition; /**< NaN when none */
 } wt_draw_status;
+
+/** Latency histogram: bin k holds 10^(k/10) <= us < 10^((k+1)/10), ten
+ * bins a decade from 1 us (below: bin 0) to 1 s (above: the last bin). */
+#define WT_DRAW_LAT_BINS 60
+/** Frame records the latency histogram covers (the newest). */
+#define WT_DRAW_LAT_WINDOW 2048
+/** Kinds of per-actuator flags kept (the first ones reported). */
+#define WT_DRAW_FLAG_KINDS 6
 
 /** Everything the panels show; pointers stay valid until the next call
  * that feeds the scene. */
@@ -167,6 +186,32 @@ typedef struct wt_draw_info {
 
 	int n_hist; /**< oldest first */
 	const wt_draw_point *hist;
+
+	/* The newest sensor image (topic "image ", wt_image.h). */
+	bool have_image;
+	uint64_t image_frame;
+	int image_w, image_h, image_bin;
+	int sensor_w, sensor_h;
+	const uint16_t *image; /**< image_w x image_h, counts, rows down */
+	double image_max;      /**< largest value, counts */
+	double pixel_um;       /**< sensor.pixel_pitch_um */
+
+	/* Latency, receive -> send, of the last lat_n frame records seen
+	 * (wt_draw_scene_timing); the statistics are brought up to date by
+	 * wt_draw_scene_sample(). */
+	int lat_n;
+	uint32_t lat_counts[WT_DRAW_LAT_BINS];
+	double lat_median_us, lat_p99_us, lat_max_us; /**< NaN: none */
+
+	/* Per-actuator flags of the calibration, from the newest
+	 * "calibration" event (or status) that had any: every member named
+	 * KIND_actuators holding an array of actuator indices gives one kind
+	 * ("weak" ...); other members are ignored. */
+	bool have_flags;
+	int n_flag_kinds;
+	char flag_names[WT_DRAW_FLAG_KINDS][24];
+	int flag_counts[WT_DRAW_FLAG_KINDS];
+	const uint8_t *act_flags; /**< A: bit k set = flag kind k */
 } wt_draw_info;
 
 typedef struct wt_draw_scene wt_draw_scene;
@@ -212,6 +257,23 @@ int wt_draw_scene_status(wt_draw_scene *s, const char *json, size_t len,
  */
 int wt_draw_scene_event(wt_draw_scene *s, const char *json, size_t len);
 
+/**
+ * Read one image record (the bytes after the topic "image ", len of them,
+ * section 6 of wt_request.h) and keep it as the newest image.  A record
+ * wt_image_decode() refuses, or one larger than this sensor, is refused
+ * (-EPROTO, counted in bad_records).
+ */
+int wt_draw_scene_image(wt_draw_scene *s, const void *rec, size_t len,
+			wt_error *err);
+
+/**
+ * Add the latency (send - receive) of a frame record to the histogram;
+ * only its header is read (len >= WT_FRAME_HEADER_BYTES, magic and version
+ * right, else ignored).  Cheap: call it for every record, also those not
+ * drawn.
+ */
+void wt_draw_scene_timing(wt_draw_scene *s, const void *rec, size_t len);
+
 /** The simulator's truth for one frame. */
 void wt_draw_scene_truth(wt_draw_scene *s, uint64_t frame, double rms_nm,
 			 double strehl);
@@ -234,6 +296,14 @@ const wt_draw_info *wt_draw_scene_info(const wt_draw_scene *s);
 int wt_draw_scene_map(const wt_draw_scene *s, int m, bool extend, float *out,
 		      double *max_abs);
 
+/** Size of a rendered picture, pixels. */
+#define WT_DRAW_WIDTH  1672
+#define WT_DRAW_HEIGHT 848
+/** The SVG group ids of the panels, in drawing order. */
+#define WT_DRAW_PANEL_IDS                                                      \
+	"image", "slopes", "wavefront", "command", "history", "latency", "sv", \
+		"actuators"
+
 /** Output formats. */
 enum wt_draw_format {
 	WT_DRAW_PNG = 0,
@@ -241,9 +311,13 @@ enum wt_draw_format {
 };
 
 /**
- * Draw every panel (slopes, residual wavefront, mirror command, flux per
- * subaperture, history, singular values, and a header line with the loop
- * state and counters) as one picture: a PNG file or an SVG document in a
+ * Draw every panel (sensor image with the subaperture grid, or the flux
+ * per subaperture when there is no image; residual slopes; residual
+ * wavefront; mirror command; history; latency histogram and counters;
+ * singular values; per-actuator flags; and a header line with the loop
+ * state and counters) as one WT_DRAW_WIDTH x WT_DRAW_HEIGHT picture.  In
+ * SVG each panel is a <g> whose id is listed in WT_DRAW_PANEL_IDS.  A PNG
+ * file or an SVG document in a
  * malloc'ed buffer (*out, *len; SVG is NUL-terminated, the terminator not
  * counted).  title may be NULL.  Returns 0, -ENOMEM.
  */
@@ -275,5 +349,13 @@ int wt_draw_record_size(const wt_config *cfg, size_t *bytes, wt_error *err);
 int wt_draw_snapshot(const wt_config *cfg, const char *status_json,
 		     const void *records, size_t records_len, const char *path,
 		     wt_error *err);
+
+/** wt_draw_snapshot() with a sensor image too: image[0 .. image_len) is
+ * one image record (after the topic "image "); NULL draws the flux per
+ * subaperture in its place.  A record the scene refuses is an error. */
+int wt_draw_snapshot_image(const wt_config *cfg, const char *status_json,
+			   const void *records, size_t records_len,
+			   const void *image, size_t image_len,
+			   const char *path, wt_error *err);
 
 #endif /* WT_DRAW_H */

@@ -177,6 +177,9 @@
  *   "event "  + JSON  one event (section 4), when it happens
  *   "frame "  + BIN   a frame record (section 5), every
  *                     daemon.frame_decimation-th frame answered
+ *   "image "  + BIN   a decimated sensor image (section 6), at most
+ *                     daemon.image_hz times per second (0: never), from
+ *                     frames that carry pixels
  *
  * ======================================================================
  * 3. The status object
@@ -299,6 +302,39 @@
  *   64+12N   4A f32[A]   command sent (normalised stroke)
  *
  * Total after the topic: 64 + 12 N + 4 A bytes.
+ *
+ * ======================================================================
+ * 6. Sensor images (topic "image ")
+ * ======================================================================
+ *
+ * After the 6 bytes "image ": a header of WT_IMAGE_HEADER_BYTES (48)
+ * bytes, then the pixels.  Little-endian, no padding (lib/wt_image.h has
+ * the struct, the encoder and a checking decoder).
+ *
+ *   offset size type     field
+ *        0    4 char[4]  magic "WTIM"
+ *        4    2 u16      version (1)
+ *        6    2 u16      loop state, numbered as in frame records
+ *        8    8 u64      frame id of the frame the pixels came with
+ *       16    8 u64      its receive time, daemon CLOCK_MONOTONIC ns
+ *       24    4 u32      W, image width in pixels (1 .. 128)
+ *       28    4 u32      H, image height in pixels (1 .. 128)
+ *       32    4 u32      b, bin: sensor pixels per image pixel each way,
+ *                        the smallest with ceil(side / b) <= 128
+ *       36    4 u32      sensor width in pixels (W = ceil(it / b))
+ *       40    4 u32      sensor height in pixels (H = ceil(it / b))
+ *       44    4 f32      scale: sensor counts per stored unit (1 now)
+ *       48  2WH u16[WH]  rows top to bottom; pixel (i, j) is the mean of
+ *                        the sensor pixels (x, y) with floor(x / b) = i,
+ *                        floor(y / b) = j (fewer at the right and bottom
+ *                        edges), rounded to the nearest count, as the
+ *                        driver sent them (before background subtraction)
+ *
+ * Total after the topic: 48 + 2 W H bytes (32 KiB at most).  The loop
+ * thread copies the pixels of a frame into one of two slots made at start
+ * when daemon.image_hz allows and a slot is free (otherwise that image is
+ * skipped, never waited for); the telemetry thread bins and publishes.
+ * Frames sent as slopes carry no pixels and give no images.
  */
 #ifndef WT_REQUEST_H
 #define WT_REQUEST_H

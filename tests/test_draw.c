@@ -18,6 +18,7 @@
 
 #include "wt_config.h"
 #include "wt_draw.h"
+#include "wt_image.h"
 #include "wt_request.h"
 
 #define PYTHON "/usr/bin/python3"
@@ -84,8 +85,10 @@ static const char *tmp_path(const char *name)
  * The checker: python3's zlib and xml modules, not our code.
  *   check.py png FILE W H CHANNELS   pixels must be (7x + 13y + 29c) & 255
  *   check.py pngsize FILE W H        any pixels, that size, RGB
- *   check.py svg FILE                well-formed, root <svg>, every
- *                                    embedded PNG well-formed too
+ *   check.py svg FILE W H IDS...     well-formed, root <svg> of that
+ *                                    size, every embedded PNG well-formed
+ *                                    too, a <g id="panel-ID"> for each ID
+ *                                    holding drawing elements
  */
 static const char checker[] =
 	"import base64, struct, sys, zlib\n"
@@ -128,17 +131,24 @@ static const char checker[] =
 	"elif mode == 'pngsize':\n"
 	"    png(data, int(sys.argv[3]), int(sys.argv[4]), 3)\n"
 	"else:\n"
+	"    ns = '{http://www.w3.org/2000/svg}'\n"
 	"    root = ET.fromstring(data)\n"
-	"    assert root.tag == '{http://www.w3.org/2000/svg}svg', root.tag\n"
-	"    assert root.get('width') and root.get('height')\n"
-	"    images = root.findall('{http://www.w3.org/2000/svg}image')\n"
+	"    assert root.tag == ns + 'svg', root.tag\n"
+	"    assert (root.get('width'), root.get('height')) == "
+	"tuple(sys.argv[3:5]), (root.get('width'), root.get('height'))\n"
+	"    groups = {g.get('id'): g for g in root.iter(ns + 'g')}\n"
+	"    for name in sys.argv[5:]:\n"
+	"        g = groups.get('panel-' + name)\n"
+	"        assert g is not None, 'no panel ' + name\n"
+	"        assert len(list(g.iter(ns + 'text'))) >= 2, name\n"
+	"        assert len(list(g.iter(ns + 'rect'))) >= 1, name\n"
+	"    images = list(root.iter(ns + 'image'))\n"
 	"    assert images, 'no embedded image'\n"
 	"    for im in images:\n"
 	"        href = im.get('href')\n"
 	"        assert href.startswith('data:image/png;base64,')\n"
 	"        png(base64.b64decode(href.split(',', 1)[1]))\n"
-	"    assert len(root.findall('{http://www.w3.org/2000/svg}text')) > "
-	"10\n";
+	"    assert len(list(root.iter(ns + 'text'))) > 10\n";
 
 /* Run the checker; returns its exit status, or -1 without python. */
 static int run_checker(const char *args)
@@ -455,6 +465,24 @@ static void png_refuses_bad_sizes(void **state)
 	assert_null(out);
 }
 
+/* Whether the file at path holds the text what. */
+static bool file_has(const char *path, const char *what)
+{
+	FILE *f = fopen(path, "rb");
+	static char buf[1 << 22];
+	size_t n;
+
+	assert_non_null(f);
+	n = fread(buf, 1, sizeof(buf) - 1, f);
+	fclose(f);
+	buf[n] = '\0';
+	return strstr(buf, what) != NULL;
+}
+
+/* The panels every snapshot must hold (the ids of wt_draw.h). */
+static const char panel_ids[] =
+	"image slopes wavefront command history latency sv actuators";
+
 static void snapshot_writes_png_and_svg(void **state)
 {
 	wt_config *cfg;
@@ -490,13 +518,45 @@ static void snapshot_writes_png_and_svg(void **state)
 	assert_int_equal(wt_draw_snapshot(cfg, status, recs, 3 * len,
 					  tmp_path("snap.png"), &err),
 			 0);
-	assert_int_equal(wt_draw_snapshot(cfg, status, recs, 3 * len,
-					  tmp_path("snap.svg"), &err),
-			 0);
+	{
+		/* A 256 x 256 sensor image (16 x 16 lenslets of 16 px). */
+		static uint16_t pix[256 * 256];
+		static uint8_t image[WT_IMAGE_BYTES_MAX];
+		int n;
+
+		for (int k = 0; k < 256 * 256; k++) {
+			pix[k] = (uint16_t)(k % 16 == 8 && k / 256 % 16 == 8
+						    ? 900
+						    : 5);
+		}
+		n = wt_image_encode(pix, 256, 256, 3, 0, 2, image,
+				    sizeof(image));
+		assert_int_equal(n, 48 + 2 * 128 * 128);
+		assert_int_equal(wt_draw_snapshot_image(
+					 cfg, status, recs, 3 * len, image,
+					 (size_t)n, tmp_path("snap.svg"), &err),
+				 0);
+		assert_int_equal(wt_draw_snapshot_image(
+					 cfg, status, recs, 3 * len, image,
+					 (size_t)n, tmp_path("snap.png"), &err),
+				 0);
+		/* An image of another sensor is refused. */
+		n = wt_image_encode(pix, 128, 128, 3, 0, 2, image,
+				    sizeof(image));
+		assert_int_equal(wt_draw_snapshot_image(
+					 cfg, status, recs, 3 * len, image,
+					 (size_t)n, tmp_path("bad.svg"), &err),
+				 -EPROTO);
+		assert_non_null(strstr(err.msg, "sensor"));
+	}
+	assert_true(file_has(tmp_path("snap.svg"), ">Sensor image<"));
+	assert_true(file_has(tmp_path("snap.svg"), ">Latency and counters<"));
 	/* No records: the panels empty, still a picture. */
 	assert_int_equal(wt_draw_snapshot(cfg, NULL, NULL, 0,
 					  tmp_path("empty.svg"), &err),
 			 0);
+	/* Without an image the flux per subaperture stands in. */
+	assert_true(file_has(tmp_path("empty.svg"), ">Flux per subaperture<"));
 	assert_int_equal(wt_draw_snapshot(cfg, status, recs, 3 * len,
 					  tmp_path("snap.jpg"), &err),
 			 -EINVAL);
@@ -510,14 +570,17 @@ static void snapshot_writes_png_and_svg(void **state)
 		tmp_done();
 		skip();
 	}
-	snprintf(args, sizeof(args), "pngsize %s 1260 848",
-		 tmp_path("snap.png"));
+	snprintf(args, sizeof(args), "pngsize %s %d %d", tmp_path("snap.png"),
+		 WT_DRAW_WIDTH, WT_DRAW_HEIGHT);
 	assert_int_equal(run_checker(args), 0);
-	/* Well-formed XML with an <svg> root, by python3's XML parser. */
-	snprintf(args, sizeof(args), "svg %s", tmp_path("snap.svg"));
-	assert_int_equal(run_checker(args), 0);
-	snprintf(args, sizeof(args), "svg %s", tmp_path("empty.svg"));
-	assert_int_equal(run_checker(args), 0);
+	/* Well-formed XML with an <svg> root and every panel's group, by
+	 * python3's XML parser. */
+	for (int k = 0; k < 2; k++) {
+		snprintf(args, sizeof(args), "svg %s %d %d %s",
+			 tmp_path(k ? "empty.svg" : "snap.svg"), WT_DRAW_WIDTH,
+			 WT_DRAW_HEIGHT, panel_ids);
+		assert_int_equal(run_checker(args), 0);
+	}
 	tmp_done();
 }
 
@@ -686,6 +749,102 @@ static void scene_reads_status_and_events(void **state)
 	wt_draw_scene_destroy(s);
 }
 
+static void scene_reads_actuator_flags(void **state)
+{
+	wt_draw_scene *s = scene_default(NULL);
+	const wt_draw_info *in = wt_draw_scene_info(s);
+
+	(void)state;
+	assert_false(in->have_flags);
+	/* The report of section 4: weak_actuators; a fuller report's members
+	 * of other shapes are ignored, out-of-range indices too. */
+	assert_int_equal(event(s, "{\"event\":\"calibration\",\"t_ns\":5,"
+				  "\"frame\":1,\"weak_actuators\":[3,7,7,"
+				  "-1,1000,2.5,\"x\"],\"swapped_actuators\":"
+				  "[[1,2]],\"dead_actuators\":[0],"
+				  "\"actuators\":{\"norms\":[1,2]},"
+				  "\"future\":{\"weak_actuators\":[9]}}"),
+			 0);
+	assert_true(in->have_flags);
+	assert_int_equal(in->n_flag_kinds, 3);
+	assert_string_equal(in->flag_names[0], "weak");
+	assert_int_equal(in->flag_counts[0], 2);
+	assert_string_equal(in->flag_names[1], "swapped");
+	assert_int_equal(in->flag_counts[1], 0);
+	assert_string_equal(in->flag_names[2], "dead");
+	assert_int_equal(in->flag_counts[2], 1);
+	assert_int_equal(in->act_flags[3], 1);
+	assert_int_equal(in->act_flags[7], 1);
+	assert_int_equal(in->act_flags[0], 4);
+	assert_int_equal(in->act_flags[9], 0);
+	/* A report with no flag members leaves them; a new one replaces. */
+	assert_int_equal(event(s, "{\"event\":\"calibration\",\"t_ns\":6,"
+				  "\"frame\":2,\"modes\":3}"),
+			 0);
+	assert_int_equal(in->n_flag_kinds, 3);
+	assert_int_equal(event(s, "{\"event\":\"calibration\",\"t_ns\":7,"
+				  "\"frame\":3,\"weak_actuators\":[]}"),
+			 0);
+	assert_int_equal(in->n_flag_kinds, 1);
+	assert_int_equal(in->flag_counts[0], 0);
+	assert_int_equal(in->act_flags[3], 0);
+	assert_int_equal(in->act_flags[0], 0);
+	wt_draw_scene_destroy(s);
+}
+
+static void latency_histogram_bins_by_tenth_decades(void **state)
+{
+	wt_draw_scene *s = scene_default(NULL);
+	const wt_draw_info *in = wt_draw_scene_info(s);
+	static const double us[] = {25, 25, 40, 1000, 0.2, 5e6, 99};
+	size_t len;
+	uint8_t *rec = record_zernike(in, 0, 0, 1, &len);
+	wt_frame_record h;
+
+	(void)state;
+	memcpy(&h, rec, sizeof(h));
+	for (size_t k = 0; k < sizeof(us) / sizeof(us[0]); k++) {
+		h.send_ns = h.recv_ns + (uint64_t)llround(us[k] * 1000);
+		memcpy(rec, &h, sizeof(h));
+		wt_draw_scene_timing(s, rec, len);
+	}
+	/* Ignored: a header too short, a foreign magic, send before
+	 * receive. */
+	wt_draw_scene_timing(s, rec, WT_FRAME_HEADER_BYTES - 1);
+	h.send_ns = h.recv_ns - 1;
+	memcpy(rec, &h, sizeof(h));
+	wt_draw_scene_timing(s, rec, len);
+	rec[0] = 'X';
+	wt_draw_scene_timing(s, rec, len);
+	wt_draw_scene_sample(s, 1);
+	assert_int_equal(in->lat_n, 7);
+	/* Bin floor(10 log10(us)) (by hand): 25 us -> 13, 40 -> 16,
+	 * 1000 -> 30, 99 -> 19; under 1 us -> 0; 5 s -> the last. */
+	assert_int_equal(in->lat_counts[13], 2);
+	assert_int_equal(in->lat_counts[16], 1);
+	assert_int_equal(in->lat_counts[30], 1);
+	assert_int_equal(in->lat_counts[19], 1);
+	assert_int_equal(in->lat_counts[0], 1);
+	assert_int_equal(in->lat_counts[WT_DRAW_LAT_BINS - 1], 1);
+	/* Sorted: 0.2 25 25 40 99 1000 5e6: median 40, nearest-rank 99th
+	 * percentile ceil(6.93) = 7th = 5e6, max 5e6. */
+	assert_float_equal(in->lat_median_us, 40, 1e-9);
+	assert_float_equal(in->lat_p99_us, 5e6, 1e-6);
+	assert_float_equal(in->lat_max_us, 5e6, 1e-6);
+	/* The window keeps the newest WT_DRAW_LAT_WINDOW. */
+	rec[0] = 'W';
+	h.send_ns = h.recv_ns + 50000; /* 50 us: bin 16 */
+	memcpy(rec, &h, sizeof(h));
+	for (int k = 0; k < WT_DRAW_LAT_WINDOW; k++) {
+		wt_draw_scene_timing(s, rec, len);
+	}
+	assert_int_equal(in->lat_n, WT_DRAW_LAT_WINDOW);
+	assert_int_equal(in->lat_counts[16], WT_DRAW_LAT_WINDOW);
+	assert_int_equal(in->lat_counts[13], 0);
+	free(rec);
+	wt_draw_scene_destroy(s);
+}
+
 static void scene_marks_actuators_at_a_limit(void **state)
 {
 	wt_draw_scene *s = scene_default(NULL);
@@ -756,6 +915,8 @@ const struct CMUnitTest tests[] = {
 	cmocka_unit_test(scene_refuses_foreign_records),
 	cmocka_unit_test(scene_reads_status_and_events),
 	cmocka_unit_test(scene_marks_actuators_at_a_limit),
+	cmocka_unit_test(scene_reads_actuator_flags),
+	cmocka_unit_test(latency_histogram_bins_by_tenth_decades),
 	cmocka_unit_test(history_keeps_the_newest_points),
 };
 WT_TEST_MAIN(tests)

@@ -31,6 +31,7 @@
 #include "wt_calreport.h"
 #include "wt_config.h"
 #include "wt_draw.h"
+#include "wt_image.h"
 #include "wt_jsonparse.h"
 #include "wt_store.h"
 
@@ -299,7 +300,8 @@ out:
 	return rc;
 }
 
-/* snapshot: the status reply plus ~2 s of frame records, drawn to path. */
+/* snapshot: the status reply plus ~2 s of frame records and the newest
+ * sensor image, drawn to path. */
 static int do_snapshot(void *ctx, const wt_config *cfg, const char *control,
 		       const char *telemetry, const char *path, int timeout_ms)
 {
@@ -310,7 +312,8 @@ static int do_snapshot(void *ctx, const wt_config *cfg, const char *control,
 	char *status = NULL;
 	char *records = NULL;
 	char *msg = NULL;
-	size_t rec = 0, have = 0;
+	size_t rec = 0, have = 0, msg_cap, image_len = 0;
+	char *image = NULL;
 	int zero = 0, slice = 100, rc = 2;
 	wt_error err;
 
@@ -326,15 +329,19 @@ static int do_snapshot(void *ctx, const wt_config *cfg, const char *control,
 	}
 	rc = 2;
 	records = malloc(rec * (size_t)max_records);
-	msg = malloc(skip + rec + 1);
+	msg_cap = skip + (rec > WT_IMAGE_BYTES_MAX ? rec : WT_IMAGE_BYTES_MAX) +
+		  1;
+	msg = malloc(msg_cap);
+	image = malloc(WT_IMAGE_BYTES_MAX);
 	sock = zmq_socket(ctx, ZMQ_SUB);
-	if (!records || !msg || !sock) {
+	if (!records || !msg || !image || !sock) {
 		fprintf(stderr, "wavetrim: out of memory\n");
 		goto out;
 	}
 	zmq_setsockopt(sock, ZMQ_LINGER, &zero, sizeof(zero));
 	zmq_setsockopt(sock, ZMQ_RCVTIMEO, &slice, sizeof(slice));
 	zmq_setsockopt(sock, ZMQ_SUBSCRIBE, topic, skip);
+	zmq_setsockopt(sock, ZMQ_SUBSCRIBE, WT_IMAGE_TOPIC, skip);
 	if (zmq_connect(sock, telemetry) != 0) {
 		fprintf(stderr, "wavetrim: cannot connect to %s: %s\n",
 			telemetry, zmq_strerror(errno));
@@ -343,9 +350,16 @@ static int do_snapshot(void *ctx, const wt_config *cfg, const char *control,
 	/* Frame records come every daemon.frame_decimation frames; keep the
 	 * newest max_records of what arrives in about two seconds. */
 	for (int waited = 0; waited < 2000 && !stop_flag; waited += slice) {
-		int len = zmq_recv(sock, msg, skip + rec + 1, 0);
+		int len = zmq_recv(sock, msg, msg_cap, 0);
 
-		if (len < 0 || (size_t)len != skip + rec) {
+		if (len > (int)skip && (size_t)len < msg_cap &&
+		    memcmp(msg, WT_IMAGE_TOPIC, skip) == 0) {
+			image_len = (size_t)len - skip;
+			memcpy(image, msg + skip, image_len);
+			continue;
+		}
+		if (len < 0 || (size_t)len != skip + rec ||
+		    memcmp(msg, topic, skip) != 0) {
 			continue;
 		}
 		if (have == (size_t)max_records) {
@@ -354,12 +368,14 @@ static int do_snapshot(void *ctx, const wt_config *cfg, const char *control,
 		}
 		memcpy(records + rec * have++, msg + skip, rec);
 	}
-	if (wt_draw_snapshot(cfg, status, records, rec * have, path, &err) !=
-	    0) {
+	if (wt_draw_snapshot_image(cfg, status, records, rec * have,
+				   image_len ? image : NULL, image_len, path,
+				   &err) != 0) {
 		fprintf(stderr, "wavetrim: %s\n", err.msg);
 		goto out;
 	}
-	printf("%s: %zu frame records drawn%s\n", path, have,
+	printf("%s: %zu frame records%s drawn%s\n", path, have,
+	       image_len ? " and a sensor image" : "",
 	       have ? "" : " (no frame telemetry arrived: panels are empty)");
 	rc = 0;
 out:
@@ -367,6 +383,7 @@ out:
 		zmq_close(sock);
 	}
 	free(msg);
+	free(image);
 	free(records);
 	free(status);
 	return rc;

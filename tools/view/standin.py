@@ -1,8 +1,9 @@
 #!/usr/bin/python3
 """Stand-in for wavetrimd and wavetrim-sim, to exercise wavetrim-view.
 
-Publishes "status " JSON, "event " JSON and "frame " records exactly as
-lib/wt_request.h defines them (sections 2-5), the simulator's 95-byte
+Publishes "status " JSON, "event " JSON, "frame " records and "image "
+records exactly as lib/wt_request.h defines them (sections 2-6), the
+simulator's 95-byte
 "truth" records (sim/sim_driver.h), and answers the control words the page
 uses (status, open, close, hold, set control.gain/leak X) on REP.  The
 numbers are made up: a defocus plus astigmatism residual that decays while
@@ -141,6 +142,33 @@ def main():
             return dict(ok=True, result=dict(key=w[1], value=v))
         return dict(ok=False, error="unknown word '%s' (try help)" % line)
 
+    side = setup["sensor_px"]
+    nl = setup["lenslets"]["n"]
+    ppl = side // nl
+    b = -(-side // 128)  # the daemon's bin: ceil(side / b) <= 128
+    iw = -(-side // b)
+    cell = {(round((x + 1) / 2 * nl - 0.5), round((y + 1) / 2 * nl - 0.5)): k
+            for k, (x, y) in enumerate(zip(lx, ly))}
+
+    def image(fid, recv, sx, sy):
+        """An IW x IW image record of section 6: a spot per lenslet, moved by
+        its slope, on a dark background."""
+        px = []
+        for j in range(iw):
+            for i in range(iw):
+                X, Y = (i + 0.5) * b, (j + 0.5) * b
+                k = cell.get((int(X // ppl), int(Y // ppl)))
+                v = 5.0
+                if k is not None:
+                    dx = X % ppl - ppl / 2 - sx[k]
+                    dy = Y % ppl - ppl / 2 - sy[k]
+                    v += 900 * math.exp(-(dx * dx + dy * dy) / 2.0)
+                px.append(int(v + 0.5))
+        head = struct.pack("<4sHHQQIIIIIf", b"WTIM", 1,
+                           {"open": 0, "closed": 2, "held": 3}[s["state"]],
+                           fid, recv, iw, iw, b, side, side, 1.0)
+        return head + struct.pack("<%dH" % (iw * iw), *px)
+
     event("state", **{"from": "open", "to": "open", "why": "start"})
     period = 1.0 / args.rate
     next_frame = time.monotonic()
@@ -198,6 +226,8 @@ def main():
                            n, a, 2, clipped, rms_px, 0)
         body = struct.pack("<%df" % (3 * n + a), *(sx + sy + flux + cmd))
         pub.send(b"frame " + head + body)
+        if frame % 40 == 0:
+            pub.send(b"image " + image(frame, recv, sx, sy))
         rms_nm = 1000 * math.sqrt(c4 * c4 + c5 * c5 + c6 * c6) * 1.05
         strehl = math.exp(-(2 * math.pi * rms_nm / lam) ** 2)
         tru.send(struct.pack("<5sHQqddddIIQQQQ", b"truth", 1, frame,

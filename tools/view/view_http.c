@@ -258,6 +258,32 @@ static void calibration_json(wt_json *j, const void *arg)
 	wt_json_int(j, in->status.recommended);
 	wt_json_key(j, "condition");
 	wt_json_double_prec(j, in->status.condition, 5);
+	/* Per-actuator flags: act[a] has bit k set for kind k. */
+	wt_json_key(j, "flags");
+	if (in->have_flags) {
+		wt_json_object_begin(j);
+		wt_json_key(j, "names");
+		wt_json_array_begin(j);
+		for (int k = 0; k < in->n_flag_kinds; k++) {
+			wt_json_string(j, in->flag_names[k]);
+		}
+		wt_json_array_end(j);
+		wt_json_key(j, "counts");
+		wt_json_array_begin(j);
+		for (int k = 0; k < in->n_flag_kinds; k++) {
+			wt_json_int(j, in->flag_counts[k]);
+		}
+		wt_json_array_end(j);
+		wt_json_key(j, "act");
+		wt_json_array_begin(j);
+		for (int k = 0; k < in->actuators->n_valid; k++) {
+			wt_json_int(j, in->act_flags[k]);
+		}
+		wt_json_array_end(j);
+		wt_json_object_end(j);
+	} else {
+		wt_json_null(j);
+	}
 	wt_json_object_end(j);
 }
 

@@ -25,6 +25,7 @@
 
 #include "view.h"
 #include "wt_clock.h"
+#include "wt_image.h"
 #include "wt_json.h"
 #include "wt_request.h"
 
@@ -253,6 +254,16 @@ static void setup_json(wt_json *j, const void *arg)
 	wt_json_double(j, in->wavelength_nm);
 	wt_json_key(j, "um_per_px");
 	wt_json_double(j, in->um_per_px);
+	wt_json_key(j, "pixel_um");
+	wt_json_double(j, in->pixel_um);
+	wt_json_key(j, "sensor_px");
+	wt_json_int(j, (int)(wt_config_int(a->cfg, WT_OPT_SENSOR_LENSLETS) *
+			     wt_config_int(a->cfg,
+					   WT_OPT_SENSOR_PIXELS_PER_LENSLET)));
+	wt_json_key(j, "image_hz");
+	wt_json_double(j, wt_config_double(a->cfg, WT_OPT_DAEMON_IMAGE_HZ));
+	wt_json_key(j, "lat_bins");
+	wt_json_int(j, WT_DRAW_LAT_BINS);
 	wt_json_key(j, "modes");
 	wt_json_array_begin(j);
 	wt_json_int(j, in->j_first);
@@ -285,7 +296,10 @@ struct tick_arg {
 	char *status;	     /* newest status text, or NULL */
 	double status_age_s; /* NaN: never */
 	bool arrays;	     /* send the frame's arrays this time */
-	float *map; /* VIEW_MAP x VIEW_MAP scratch for the wavefront map */
+	bool image;	     /* a new sensor image goes with this tick */
+	float *map;    /* VIEW_MAP x VIEW_MAP scratch for the wavefront map */
+	uint8_t *img8; /* WT_IMAGE_SIDE_MAX^2 scratch: the image in 8 bits */
+	char *img64;   /* its base64 */
 };
 
 static void bits_json(wt_json *j, const uint8_t *b, size_t n)
@@ -369,6 +383,65 @@ static void frame_json(wt_json *j, const struct tick_arg *a)
 	wt_json_object_end(j);
 }
 
+/*
+ * The newest sensor image for the page: 8 bits of a full scale that is a
+ * "nice" number of counts at or above its largest value (the page's colour
+ * bar), as base64, about 22 KB for 128 x 128.
+ */
+static void image_json(wt_json *j, const struct tick_arg *a)
+{
+	const wt_draw_info *in = wt_draw_scene_info(a->v->scene);
+	size_t n = (size_t)in->image_w * (size_t)in->image_h;
+	double top = wt_draw_nice_ceil(in->image_max > 0 ? in->image_max : 1);
+
+	for (size_t k = 0; k < n; k++) {
+		a->img8[k] =
+			(uint8_t)lround(fmin(255, in->image[k] * 255.0 / top));
+	}
+	wt_draw_base64(a->img8, n, a->img64);
+	wt_json_object_begin(j);
+	wt_json_key(j, "frame");
+	wt_json_uint(j, in->image_frame);
+	wt_json_key(j, "w");
+	wt_json_int(j, in->image_w);
+	wt_json_key(j, "h");
+	wt_json_int(j, in->image_h);
+	wt_json_key(j, "bin");
+	wt_json_int(j, in->image_bin);
+	wt_json_key(j, "sensor");
+	wt_json_array_begin(j);
+	wt_json_int(j, in->sensor_w);
+	wt_json_int(j, in->sensor_h);
+	wt_json_array_end(j);
+	wt_json_key(j, "max");
+	wt_json_double(j, in->image_max);
+	wt_json_key(j, "full_scale");
+	wt_json_double(j, top);
+	wt_json_key(j, "b64");
+	wt_json_string(j, a->img64);
+	wt_json_object_end(j);
+}
+
+static void latency_json(wt_json *j, const wt_draw_info *in)
+{
+	wt_json_object_begin(j);
+	wt_json_key(j, "n");
+	wt_json_int(j, in->lat_n);
+	wt_json_key(j, "median");
+	wt_json_double_prec(j, in->lat_median_us, 4);
+	wt_json_key(j, "p99");
+	wt_json_double_prec(j, in->lat_p99_us, 4);
+	wt_json_key(j, "max");
+	wt_json_double_prec(j, in->lat_max_us, 4);
+	wt_json_key(j, "counts");
+	wt_json_array_begin(j);
+	for (int k = 0; k < WT_DRAW_LAT_BINS; k++) {
+		wt_json_uint(j, in->lat_counts[k]);
+	}
+	wt_json_array_end(j);
+	wt_json_object_end(j);
+}
+
 static void tick_json(wt_json *j, const void *arg)
 {
 	const struct tick_arg *a = arg;
@@ -422,6 +495,14 @@ static void tick_json(wt_json *j, const void *arg)
 	} else {
 		wt_json_null(j);
 	}
+	wt_json_key(j, "image");
+	if (a->image) {
+		image_json(j, a);
+	} else {
+		wt_json_null(j);
+	}
+	wt_json_key(j, "latency");
+	latency_json(j, in);
 	wt_json_key(j, "calib_seq");
 	wt_json_uint(j, v->calib_seq);
 	wt_json_key(j, "view");
@@ -452,6 +533,9 @@ struct feed {
 	uint8_t *frame; /* newest frame record */
 	size_t frame_len, frame_cap;
 	bool frame_new;
+	uint8_t *image; /* newest image record, WT_IMAGE_BYTES_MAX */
+	size_t image_len;
+	bool image_new;
 	struct view_text status; /* newest status text */
 	bool status_new;
 	uint64_t status_ns; /* when it came, 0: never */
@@ -542,6 +626,19 @@ static void drain_telemetry(struct feed *f)
 			memcpy(f->frame, d + strlen(WT_FRAME_TOPIC), n);
 			f->frame_len = n;
 			f->frame_new = true;
+			/* Every record counts in the latency histogram, also
+			 * those a tick never draws. */
+			pthread_mutex_lock(&f->v->lock);
+			wt_draw_scene_timing(f->v->scene, f->frame, n);
+			pthread_mutex_unlock(&f->v->lock);
+		} else if (starts(d, len, WT_IMAGE_TOPIC)) {
+			size_t n = len - strlen(WT_IMAGE_TOPIC);
+
+			if (n <= WT_IMAGE_BYTES_MAX) {
+				memcpy(f->image, d + strlen(WT_IMAGE_TOPIC), n);
+				f->image_len = n;
+				f->image_new = true;
+			}
 		} else if (starts(d, len, "status ")) {
 			if (view_text_set(&f->status, d + 7, len - 7) == 0) {
 				f->status_new = true;
@@ -660,6 +757,12 @@ static void tick(struct feed *f, uint64_t start_ns, struct tick_arg *a)
 				     NULL);
 		f->status_new = false;
 	}
+	a->image = false;
+	if (f->image_new) {
+		a->image = wt_draw_scene_image(v->scene, f->image, f->image_len,
+					       NULL) == 0;
+		f->image_new = false;
+	}
 	a->t_s = (double)(now - start_ns) / 1e9;
 	wt_draw_scene_sample(v->scene, a->t_s);
 	a->v = v;
@@ -672,7 +775,9 @@ static void tick(struct feed *f, uint64_t start_ns, struct tick_arg *a)
 	every = 1 + (int)(values / TICK_VALUES);
 	a->arrays = f->ticks % (uint64_t)every == 0;
 	f->ticks++;
-	if (view_text_build(&v->tick, 16384 + 12 * values + f->status.len,
+	if (view_text_build(&v->tick,
+			    16384 + 12 * values + f->status.len +
+				    (a->image ? 4 * WT_IMAGE_BYTES_MAX / 5 : 0),
 			    tick_json, a) == 0) {
 		v->tick_seq++;
 		pthread_cond_broadcast(&v->cond);
@@ -682,8 +787,8 @@ static void tick(struct feed *f, uint64_t start_ns, struct tick_arg *a)
 
 static int run(struct view *v, bool no_truth)
 {
-	static const char *const topics[] = {"status ", "event ",
-					     WT_FRAME_TOPIC, NULL};
+	static const char *const topics[] = {
+		"status ", "event ", WT_FRAME_TOPIC, WT_IMAGE_TOPIC, NULL};
 	static const char *const truth_topics[] = {"truth", NULL};
 	struct feed f = {.v = v};
 	struct tick_arg *a = calloc(1, sizeof(*a));
@@ -692,9 +797,19 @@ static int run(struct view *v, bool no_truth)
 
 	if (a) {
 		a->map = calloc(VIEW_MAP * VIEW_MAP, sizeof(*a->map));
+		a->img8 = malloc(WT_IMAGE_SIDE_MAX * WT_IMAGE_SIDE_MAX);
+		a->img64 = malloc(
+			WT_IMAGE_SIDE_MAX * WT_IMAGE_SIDE_MAX / 3 * 4 + 8);
 	}
-	if (!a || !a->map) {
+	f.image = malloc(WT_IMAGE_BYTES_MAX);
+	if (!a || !a->map || !a->img8 || !a->img64 || !f.image) {
+		if (a) {
+			free(a->map);
+			free(a->img8);
+			free(a->img64);
+		}
 		free(a);
+		free(f.image);
 		return -ENOMEM;
 	}
 	period = (uint64_t)(1e9 / v->rate_hz);
@@ -763,8 +878,11 @@ out:
 	}
 	zmq_msg_close(&f.msg);
 	free(f.frame);
+	free(f.image);
 	view_text_free(&f.status);
 	free(a->map);
+	free(a->img8);
+	free(a->img64);
 	free(a);
 	return rc;
 }

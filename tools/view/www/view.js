@@ -1,6 +1,13 @@
 /*
  * wavetrim-view page: draws what the server streams, sends the operator's
  * requests through the server.  No logic of the loop lives here.
+ *
+ * Colour maps (the server sends both tables, lib/wt_draw.h has their
+ * sources): magnitudes (sensor counts, flux) in viridis, perceptually
+ * uniform and sequential, 0 at the dark end; signed values (wavefront nm,
+ * mirror stroke) in cool-warm, diverging, white at 0, symmetric limits.
+ * Every map has a colour bar with its unit; maps of the sensor plane have a
+ * length bar too.
  */
 'use strict';
 
@@ -13,6 +20,8 @@
     maps: null,       // {viridis: [[r,g,b]...], coolwarm: [...]}
     tick: null,       // the newest tick
     frame: null,      // the newest frame that carried arrays
+    image: null,      // the newest sensor image: {w, h, ..., px: Uint8Array}
+    images: 0,
     hist: [],
     lastSeq: null,
     calibSeq: null,
@@ -26,6 +35,11 @@
     ticks: () => st.ticks,
     histLen: () => st.hist.length,
     hasFrame: () => st.frame !== null,
+    images: () => st.images,
+    imageFrame: () => (st.image ? st.image.frame : null),
+    wavefrontRms: () => (st.tick && st.tick.frame ? st.tick.frame.rms_nm : null),
+    flagKinds: () => (st.calib && st.calib.flags ? st.calib.flags.names : null),
+    latencyRecords: () => (st.tick && st.tick.latency ? st.tick.latency.n : 0),
   };
 
   const $ = (id) => document.getElementById(id);
@@ -165,6 +179,82 @@
     };
   }
 
+  // A length bar at the lower left of a map of the sensor plane (the
+  // lenslet grid spans the sensor), on a white label.
+  function lengthBar(c, a) {
+    const total = st.setup.sensor_px * st.setup.pixel_um;
+    if (!(total > 0)) {
+      return;
+    }
+    const um = niceCeil(0.1 * total);
+    const w = um / total * a.s;
+    const label = um >= 1000 ? `${fmt(um / 1000, 3)} mm` : `${fmt(um, 3)} \u00b5m`;
+    const g = c.g;
+    g.fillStyle = 'rgba(255,255,255,0.9)';
+    g.fillRect(a.x + 2, a.y + a.s - 26, Math.max(w, g.measureText(label).width) + 10, 24);
+    g.fillStyle = '#222';
+    g.fillRect(a.x + 6, a.y + a.s - 9, w, 3);
+    say(g, a.x + 6, a.y + a.s - 13, label);
+  }
+
+  function drawImage() {
+    const c = prepare('c-image');
+    const a = square(c);
+    const g = c.g;
+    const im = st.image;
+    const f = st.frame;
+    if (!im) {
+      nothing(c, st.setup.image_hz > 0 ? 'no image yet' :
+        'daemon.image_hz is 0: no images');
+      return;
+    }
+    const lut = st.maps.viridis;
+    const img = new ImageData(im.w, im.h);
+    for (let k = 0; k < im.w * im.h; k++) {
+      const q = lut[im.px[k]];
+      img.data[4 * k] = q[0];
+      img.data[4 * k + 1] = q[1];
+      img.data[4 * k + 2] = q[2];
+      img.data[4 * k + 3] = 255;
+    }
+    const off = document.createElement('canvas');
+    off.width = im.w;
+    off.height = im.h;
+    off.getContext('2d').putImageData(img, 0, 0);
+    g.imageSmoothingEnabled = false;
+    g.drawImage(off, a.x, a.y, a.s * im.w * im.bin / im.sensor[0],
+      a.s * im.h * im.bin / im.sensor[1]);
+    const n = st.setup.lenslets.x.length;
+    let invalid = 0;
+    g.lineWidth = 1;
+    for (let k = 0; k < n; k++) {
+      const p = cell(a, k);
+      if (!f || f.valid[k] === '1') {
+        g.strokeStyle = 'rgba(200,205,210,0.55)';
+        g.strokeRect(p.x - p.side / 2 + 0.5, p.y - p.side / 2 + 0.5,
+          p.side - 1, p.side - 1);
+      } else {
+        invalid++;
+        g.strokeStyle = '#e74c3c';
+        g.lineWidth = 1.5;
+        g.beginPath();
+        g.moveTo(p.x - p.side / 3, p.y - p.side / 3);
+        g.lineTo(p.x + p.side / 3, p.y + p.side / 3);
+        g.moveTo(p.x - p.side / 3, p.y + p.side / 3);
+        g.lineTo(p.x + p.side / 3, p.y - p.side / 3);
+        g.stroke();
+        g.lineWidth = 1;
+      }
+    }
+    lengthBar(c, a);
+    colourBar(c, a.bx, 20, a.s - 30, 'viridis', 0, im.full_scale, 'counts');
+    $('cap-image').textContent =
+      `frame ${im.frame}: ${im.w}\u00d7${im.h} of the ` +
+      `${im.sensor[0]}\u00d7${im.sensor[1]} px sensor (mean of ` +
+      `${im.bin}\u00d7${im.bin}), peak ${fmt(im.max, 4)} counts; grid: ` +
+      `subapertures, \u00d7: ${invalid} under sensor.min_flux`;
+  }
+
   /* --- panels ------------------------------------------------------------ */
 
   function drawSlopes() {
@@ -206,6 +296,7 @@
     g.strokeStyle = g.fillStyle = '#222';
     arrow(g, a.bx, 30, a.bx + ref * scale, 30, 0.3 * side);
     say(g, a.bx, 48, `${fmt(ref, 3)} px`);
+    lengthBar(c, a);
     g.fillStyle = '#c8c8c8';
     g.fillRect(a.bx, 66, 10, 10);
     say(g, a.bx + 14, 75, 'invalid');
@@ -252,6 +343,7 @@
     g.drawImage(off, a.x, a.y, a.s, a.s);
     g.restore();
     pupil(g, a);
+    lengthBar(c, a);
     colourBar(c, a.bx, 20, a.s - 30, 'coolwarm', -top, top, 'nm');
     const modes = st.setup.modes;
     $('cap-wavefront').textContent =
@@ -289,7 +381,7 @@
         g.stroke();
       }
     }
-    colourBar(c, a.bx, 20, a.s - 100, 'coolwarm', -1, 1, 'stroke');
+    colourBar(c, a.bx, 20, a.s - 100, 'coolwarm', -1, 1, 'stroke (norm.)');
     g.fillStyle = '#ddd';
     g.strokeStyle = '#222';
     g.lineWidth = 2.5;
@@ -338,6 +430,7 @@
       }
     }
     pupil(g, a);
+    lengthBar(c, a);
     colourBar(c, a.bx, 20, a.s - 30, 'viridis', 0, top, 'counts');
     if (!f) {
       nothing(c, 'no frame record yet');
@@ -488,6 +581,117 @@
       `condition number ${fmt(cal.condition, 4)}`;
   }
 
+  const UNITS = ['1 \u00b5s', '10 \u00b5s', '100 \u00b5s', '1 ms', '10 ms',
+    '100 ms', '1 s'];
+
+  // Bin k: 10^(k/10) <= latency/us < 10^((k+1)/10) (lib/wt_draw.h).
+  function drawLatency() {
+    const c = prepare('c-latency');
+    const g = c.g;
+    const L = st.tick && st.tick.latency;
+    if (!L || L.n === 0) {
+      nothing(c, 'no frame records yet');
+      return;
+    }
+    let lo = L.counts.length;
+    let hi = -1;
+    let big = 0;
+    L.counts.forEach((v, k) => {
+      if (v > 0) {
+        lo = Math.min(lo, k);
+        hi = k;
+        big = Math.max(big, v);
+      }
+    });
+    const d0 = Math.floor(lo / 10);
+    const d1 = Math.floor(hi / 10) + 1;
+    const nb = 10 * (d1 - d0);
+    const x = 48;
+    const y = 16;
+    const w = c.w - 64;
+    const h = c.h - 44;
+    g.fillStyle = getComputedStyle(document.body).getPropertyValue('--accent');
+    for (let k = 10 * d0; k < 10 * d1; k++) {
+      const bh = L.counts[k] / big * h;
+      if (bh > 0) {
+        g.fillRect(x + (k - 10 * d0) / nb * w + 0.5, y + h - bh,
+          Math.max(1, w / nb - 1), bh);
+      }
+    }
+    g.strokeStyle = '#888';
+    g.lineWidth = 1;
+    g.beginPath();
+    g.moveTo(x, y);
+    g.lineTo(x, y + h);
+    g.lineTo(x + w, y + h);
+    g.stroke();
+    for (let d = d0; d <= d1; d++) {
+      const lx = x + (d - d0) / (d1 - d0) * w;
+      say(g, lx, y + h + 15, UNITS[d] || '', 'center');
+    }
+    say(g, x - 4, y + 8, String(big), 'right');
+    say(g, x - 4, y + h, '0', 'right');
+    say(g, x + 4, y - 4, 'frame records per bin (10 a decade)');
+    $('cap-latency').textContent =
+      `receive \u2192 send of the last ${L.n} frame records seen: median ` +
+      `${fmt(L.median, 3)} \u00b5s, 99% ${fmt(L.p99, 3)} \u00b5s, max ` +
+      `${fmt(L.max, 3)} \u00b5s`;
+  }
+
+  const FLAG_COLOURS = ['#c0392b', '#e08a00', '#7d3c98', '#1f77b4',
+    '#2e8b57', '#8c564b'];
+
+  function drawActuators() {
+    const c = prepare('c-actuators');
+    const a = square(c);
+    const g = c.g;
+    const A = st.setup.actuators;
+    const fl = st.calib && st.calib.flags;
+    const half = a.s / 2;
+    const rpx = half / Math.max(1, A.n * A.pitch / 2);
+    const r = 0.42 * A.pitch * rpx;
+    let flagged = 0;
+    g.strokeStyle = '#888';
+    g.lineWidth = 1;
+    g.beginPath();
+    g.arc(a.x + half, a.y + half, rpx, 0, 2 * Math.PI);
+    g.stroke();
+    for (let k = 0; k < A.x.length; k++) {
+      let col = '#ddd';
+      if (fl && Array.isArray(fl.act)) {
+        for (let b = 0; b < fl.names.length; b++) {
+          if (fl.act[k] & (1 << b)) {
+            col = FLAG_COLOURS[b % FLAG_COLOURS.length];
+            flagged++;
+            break;
+          }
+        }
+      }
+      g.fillStyle = col;
+      g.beginPath();
+      g.arc(a.x + half + A.x[k] * rpx, a.y + half + A.y[k] * rpx, r, 0,
+        2 * Math.PI);
+      g.fill();
+    }
+    if (!fl) {
+      nothing(c, 'no calibration report seen');
+      $('cap-actuators').textContent = 'flags come with the daemon\'s ' +
+        'calibration report (the calibration event), none seen since ' +
+        'the view started';
+      return;
+    }
+    fl.names.forEach((name, b) => {
+      g.fillStyle = FLAG_COLOURS[b % FLAG_COLOURS.length];
+      g.beginPath();
+      g.arc(a.bx + 6, 24 + 18 * b, 5, 0, 2 * Math.PI);
+      g.fill();
+      say(g, a.bx + 16, 28 + 18 * b, `${name} ${fl.counts[b]}`);
+    });
+    $('cap-actuators').textContent =
+      `${flagged} of ${A.x.length} actuators flagged by the calibration ` +
+      `report (weak: response under a quarter of the median)`;
+  }
+
   /* --- text ---------------------------------------------------------------- */
 
   function setText(id, text) {
@@ -519,6 +723,7 @@
     }
     if (f) {
       setText('s-frame', String(f.id));
+      setText('s-wf', `${fmt(f.rms_nm, 4)} nm / ${fmt(f.strehl, 3)}`);
     }
     if (s) {
       const c = s.counts || {};
@@ -532,6 +737,13 @@
       setText('s-refused', `${c.refused} / ${c.bad_dimensions}`);
       setText('s-rejected', `${c.rejected_updates} / ${c.send_failed}`);
       setText('s-tmlost', String(c.telemetry_dropped));
+      // Counters that are not zero stand out.
+      for (const [id, vs] of [['s-dropped', [c.dropped, c.stale]],
+        ['s-refused', [c.refused, c.bad_dimensions]],
+        ['s-rejected', [c.rejected_updates, c.send_failed]],
+        ['s-tmlost', [c.telemetry_dropped]]]) {
+        $(id).classList.toggle('alert', vs.some((v) => v > 0));
+      }
       setText('s-modes', String(s.modes));
       for (const [id, v] of [['gain', s.gain], ['leak', s.leak]]) {
         const input = $(id);
@@ -569,12 +781,15 @@
   function redraw() {
     st.dirty = false;
     drawStatus();
+    drawImage();
     drawSlopes();
     drawWavefront();
     drawCommand();
     drawFlux();
     drawHistory();
+    drawLatency();
     drawSv();
+    drawActuators();
   }
 
   function schedule() {
@@ -624,6 +839,17 @@
     st.tick = t;
     if (t.frame && t.frame.sx) {
       st.frame = t.frame;
+    }
+    if (t.image && typeof t.image.b64 === 'string') {
+      const bin = atob(t.image.b64);
+      const px = new Uint8Array(bin.length);
+      for (let k = 0; k < bin.length; k++) {
+        px[k] = bin.charCodeAt(k);
+      }
+      if (px.length === t.image.w * t.image.h) {
+        st.image = Object.assign({}, t.image, { px });
+        st.images++;
+      }
     }
     if (t.calib_seq !== st.calibSeq) {
       st.calibSeq = t.calib_seq;
