@@ -293,6 +293,74 @@ int wt_key_generate(const char *prefix, wt_keypair *kp, wt_error *err)
 	return 0;
 }
 
+int wt_secret_read(const char *path, char *out, size_t len, wt_error *err)
+{
+	char *text, *line, *save = NULL;
+	mode_t mode = 0;
+	int rc;
+
+	if (!path || !out || len == 0) {
+		return wt_error_set(err, -EINVAL, "token file: NULL argument");
+	}
+	out[0] = '\0';
+	rc = slurp(path, &text, &mode, err);
+	if (rc < 0) {
+		return rc;
+	}
+	if (mode & 077) {
+		free(text);
+		return wt_error_set(err, -EACCES,
+				    "%s: a token file must be private to its "
+				    "owner, but its mode is %04o (chmod 600 "
+				    "%s)",
+				    path, (unsigned)(mode & 07777), path);
+	}
+	rc = wt_error_set(err, -EINVAL, "%s: no token (one line of at "
+				   "least %d characters)",
+			  path, WT_SECRET_MIN);
+	for (line = strtok_r(text, "\r\n", &save); line;
+	     line = strtok_r(NULL, "\r\n", &save)) {
+		char *end;
+		size_t n;
+
+		while (*line == ' ' || *line == '\t') {
+			line++;
+		}
+		if (!*line || *line == '#') {
+			continue;
+		}
+		end = line + strlen(line);
+		while (end > line && (end[-1] == ' ' || end[-1] == '\t')) {
+			*--end = '\0';
+		}
+		n = strlen(line);
+		for (size_t k = 0; k < n; k++) {
+			if (line[k] < 0x21 || line[k] > 0x7e) {
+				n = 0;
+			}
+		}
+		if (n >= WT_SECRET_MIN && n < len) {
+			memcpy(out, line, n + 1);
+			rc = 0;
+			wt_error_clear(err);
+		}
+		break;
+	}
+	free(text);
+	return rc;
+}
+
+bool wt_secret_equal(const char *a, const char *b)
+{
+	size_t na = strlen(a), nb = strlen(b);
+	unsigned char diff = na != nb;
+
+	for (size_t k = 0; k < na; k++) {
+		diff |= (unsigned char)a[k] ^ (unsigned char)b[k < nb ? k : 0];
+	}
+	return diff == 0;
+}
+
 /* --- allow-lists ---------------------------------------------------------- */
 
 struct wt_keylist {

@@ -75,6 +75,20 @@ int wt_key_read_public(const char *path, char key[WT_KEY_TEXT],
 /** Is text (up to its terminator) a valid Z85 CURVE key? */
 bool wt_key_valid(const char *text);
 
+/** Shortest access token wt_secret_read() takes. */
+#define WT_SECRET_MIN 16
+
+/**
+ * Read an access token (e.g. wavetrim-view's --token-file): the first line
+ * that is not blank nor a '#' comment, without surrounding blanks, at
+ * least WT_SECRET_MIN and less than len characters, printable ASCII.  The
+ * file must be private to its owner, as a secret key file.
+ */
+int wt_secret_read(const char *path, char *out, size_t len, wt_error *err);
+
+/** a equals b, in a time that depends on their lengths only. */
+bool wt_secret_equal(const char *a, const char *b);
+
 /** An allow-list of public keys. */
 typedef struct wt_keylist wt_keylist;
 

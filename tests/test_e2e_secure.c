@@ -10,10 +10,14 @@
 #include "wt_test.h"
 
 #include <errno.h>
+#include <fcntl.h>
 #include <ftw.h>
+#include <signal.h>
 #include <string.h>
+#include <sys/prctl.h>
 #include <sys/socket.h>
 #include <sys/stat.h>
+#include <sys/wait.h>
 #include <unistd.h>
 
 #include <arpa/inet.h>
@@ -770,6 +774,128 @@ static void driver_link_lets_in_the_listed_daemon_only(
 	stop_clean(&e);
 }
 
+/* --- wavetrim-view's HTTP side -------------------------------------------- */
+
+#define VIEW_BIN WT_BINARY_DIR "/tools/view/wavetrim-view"
+
+/* The status code of one HTTP/1.0 GET to 127.0.0.1:port, with an extra
+ * header line (or ""); 0 when nothing answers.  The reply is in buf. */
+static int http_get(int port, const char *path, const char *header,
+		    char *buf, size_t cap)
+{
+	struct sockaddr_in a = {.sin_family = AF_INET};
+	char req[512];
+	size_t len = 0;
+	ssize_t n;
+	int fd = socket(AF_INET, SOCK_STREAM, 0), code = 0;
+
+	assert_true(fd >= 0);
+	a.sin_addr.s_addr = htonl(INADDR_LOOPBACK);
+	a.sin_port = htons((uint16_t)port);
+	if (connect(fd, (struct sockaddr *)&a, sizeof(a)) != 0) {
+		close(fd);
+		return 0;
+	}
+	snprintf(req, sizeof(req), "GET %s HTTP/1.0\r\nHost: 127.0.0.1:%d\r\n"
+		 "%s\r\n", path, port, header);
+	assert_int_equal(write(fd, req, strlen(req)), (ssize_t)strlen(req));
+	while (len + 1 < cap && (n = read(fd, buf + len, cap - 1 - len)) > 0) {
+		len += (size_t)n;
+	}
+	buf[len] = '\0';
+	close(fd);
+	sscanf(buf, "HTTP/1.%*d %d", &code);
+	return code;
+}
+
+static void view_beyond_loopback_needs_its_token(void **state)
+{
+	const struct keys *k;
+	char listen[64], token[160], *buf;
+	char *argv[] = {(char *)VIEW_BIN, "-c", NULL, "--no-truth",
+			"--listen", listen, "--allow-remote", "--token-file",
+			token, NULL};
+	e2e_run_result *r;
+	int port = free_port(), code = 0;
+	pid_t pid;
+	e2e e;
+
+	(void)state;
+	if (access(VIEW_BIN, X_OK) != 0) {
+		skip(); /* built only with libmicrohttpd */
+	}
+	k = keys();
+	r = malloc(sizeof(*r));
+	buf = malloc(65536);
+	assert_non_null(r);
+	assert_non_null(buf);
+	assert_int_equal(e2e_setup(&e, NULL), 0);
+	argv[2] = e.ini;
+	snprintf(listen, sizeof(listen), "0.0.0.0:%d", port);
+	snprintf(token, sizeof(token), "%s/view-token", k->dir);
+	write_text(token, "# the view's token\nsixteen-or-more-characters\n");
+
+	/* without the token, and with a token others may read: refused */
+	argv[7] = NULL;
+	assert_int_equal(e2e_run(argv, RUN_MS, r), 0);
+	assert_int_equal(r->status, 2);
+	assert_non_null(strstr(r->err, "needs --allow-remote and "
+				       "--token-file"));
+	argv[7] = "--token-file";
+	chmod(token, 0644);
+	assert_int_equal(e2e_run(argv, RUN_MS, r), 0);
+	assert_int_equal(r->status, 2);
+	assert_non_null(strstr(r->err, "must be private to its owner"));
+	chmod(token, 0600);
+
+	pid = fork();
+	if (pid == 0) {
+		int null = open("/dev/null", O_WRONLY);
+
+		prctl(PR_SET_PDEATHSIG, SIGKILL);
+		dup2(null, STDOUT_FILENO);
+		execv(argv[0], argv);
+		_exit(127);
+	}
+	assert_true(pid > 0);
+	/* wait until it listens (it answers 401 to anyone without the
+	 * token); every try is a real request, no fixed sleep */
+	for (int tries = 0; tries < 500 && code == 0; tries++) {
+		code = http_get(port, "/api/setup", "", buf, 65536);
+		if (code == 0) {
+			usleep(10000);
+		}
+	}
+	assert_int_equal(code, 401);
+	assert_int_equal(http_get(port, "/api/setup",
+				  "Authorization: Bearer wrong-but-long-"
+				  "enough\r\n", buf, 65536),
+			 401);
+	assert_int_equal(http_get(port, "/api/setup",
+				  "Authorization: Bearer sixteen-or-more-"
+				  "characters\r\n", buf, 65536),
+			 200);
+	/* a browser: ?token= sets the cookie and goes on to / */
+	assert_int_equal(http_get(port, "/?token=sixteen-or-more-characters",
+				  "", buf, 65536),
+			 303);
+	assert_non_null(strstr(buf, "Set-Cookie: wavetrim-view=sixteen-or-"
+				    "more-characters; Path=/; HttpOnly; "
+				    "SameSite=Strict"));
+	assert_int_equal(http_get(port, "/", "Cookie: wavetrim-view=sixteen-"
+					     "or-more-characters\r\n",
+				  buf, 65536),
+			 200);
+	assert_int_equal(http_get(port, "/?token=wrong-but-long-enough", "",
+				  buf, 65536),
+			 401);
+	kill(pid, SIGTERM);
+	assert_int_equal(waitpid(pid, &code, 0), pid);
+	e2e_teardown(&e, NULL, NULL);
+	free(buf);
+	free(r);
+}
+
 static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(keygen_writes_private_secret_and_public),
 	cmocka_unit_test(key_files_unreadable_or_malformed_refused),
@@ -781,6 +907,7 @@ static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(read_only_client_cannot_change_the_mirror),
 	cmocka_unit_test(cli_speaks_curve_with_key_options),
 	cmocka_unit_test(driver_link_lets_in_the_listed_daemon_only),
+	cmocka_unit_test(view_beyond_loopback_needs_its_token),
 };
 
 WT_TEST_MAIN(tests)
