@@ -710,6 +710,39 @@ static void cli_speaks_curve_with_key_options(void **state)
 	stop_clean(&e);
 }
 
+/* The Python example client's --server-key and --client-key: a reader
+ * sees status on both sockets and is refused `open`. */
+static void example_client_speaks_curve(void **state)
+{
+	const struct keys *k;
+	e2e_run_result *r = malloc(sizeof(*r));
+	e2e e;
+
+	(void)state;
+	assert_non_null(r);
+	start_secure_daemon(&e);
+	k = keys();
+	{
+		char *argv[] = {"/usr/bin/python3", /* Debian's: python3-zmq */
+				WT_SOURCE_DIR "/tools/example_client.py",
+				e.control, "-t", e.telemetry, "-n", "1",
+				"--server-key", (char *)k->server_pub,
+				"--client-key", (char *)k->reader_prefix,
+				NULL};
+
+		assert_int_equal(e2e_run(argv, 30000, r), 0);
+		if (r->status != 0) {
+			fail_msg("exit %d: %s %s", r->status, r->out, r->err);
+		}
+		assert_non_null(strstr(r->out, "status: ok=true"));
+		assert_non_null(strstr(r->out, "open: ok=false error=\"read-"
+					       "only client\""));
+		assert_non_null(strstr(r->out, "status: state=open"));
+	}
+	free(r);
+	stop_clean(&e);
+}
+
 /* --- the driver link ------------------------------------------------------- */
 
 static void driver_link_lets_in_the_listed_daemon_only(
@@ -906,6 +939,7 @@ static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(listed_clients_command_and_read_telemetry),
 	cmocka_unit_test(read_only_client_cannot_change_the_mirror),
 	cmocka_unit_test(cli_speaks_curve_with_key_options),
+	cmocka_unit_test(example_client_speaks_curve),
 	cmocka_unit_test(driver_link_lets_in_the_listed_daemon_only),
 	cmocka_unit_test(view_beyond_loopback_needs_its_token),
 };
