@@ -192,8 +192,8 @@ static void *bind_socket(struct wtd *d, int type, const char *option,
 		       d->curve || strncmp(endpoint, "ipc://", 6) == 0
 			       ? ""
 			       : " (to serve other hosts, set "
-				  "daemon.secret_key and daemon.clients: see "
-				  "`wavetrim keygen`)");
+				 "daemon.secret_key and daemon.clients: see "
+				 "`wavetrim keygen`)");
 	}
 	if (strncmp(endpoint, "ipc://", 6) == 0) {
 		const char *path = endpoint + 6;
@@ -274,7 +274,7 @@ static void *connect_socket(struct wtd *d, int type, const char *option,
 	return s;
 }
 
-/* --- access (lib/wt_secure.h) ---------------------------------------------- */
+/* --- access (lib/wt_secure.h) ------------------------------------------ */
 
 /*
  * Keys and allow-lists from the configuration; the ZAP handler when the
@@ -329,13 +329,13 @@ static void set_up_access(struct wtd *d, char driver_public[WT_KEY_TEXT],
 			 &err) < 0) {
 		refuse("%s", err.msg);
 	}
-	wt_log_notice(d->log,
-		      "CURVE: public key %s; %zu keys listed, %s may change the "
-		      "mirror",
-		      d->keys.public_key,
-		      wt_keylist_count(d->clients) +
-			      wt_keylist_count(d->writers),
-		      d->writers ? "only daemon.writers" : "all of them");
+	wt_log_notice(
+		d->log,
+		"CURVE: public key %s; %zu keys listed, %s may change the "
+		"mirror",
+		d->keys.public_key,
+		wt_keylist_count(d->clients) + wt_keylist_count(d->writers),
+		d->writers ? "only daemon.writers" : "all of them");
 }
 
 /* --- the loop thread's scheduling
@@ -515,14 +515,14 @@ int main(int argc, char **argv)
 	d.s_telemetry = bind_socket(
 		&d, ZMQ_PUB, "daemon.telemetry",
 		wt_config_string(d.cfg, WT_OPT_DAEMON_TELEMETRY), false);
-	d.s_frames = connect_socket(
-		&d, ZMQ_PULL, "driver.frames",
-		wt_config_string(d.cfg, WT_OPT_DRIVER_FRAMES),
-		have_driver_key ? driver_public : NULL);
-	d.s_commands = connect_socket(
-		&d, ZMQ_PUSH, "driver.commands",
-		wt_config_string(d.cfg, WT_OPT_DRIVER_COMMANDS),
-		have_driver_key ? driver_public : NULL);
+	d.s_frames =
+		connect_socket(&d, ZMQ_PULL, "driver.frames",
+			       wt_config_string(d.cfg, WT_OPT_DRIVER_FRAMES),
+			       have_driver_key ? driver_public : NULL);
+	d.s_commands =
+		connect_socket(&d, ZMQ_PUSH, "driver.commands",
+			       wt_config_string(d.cfg, WT_OPT_DRIVER_COMMANDS),
+			       have_driver_key ? driver_public : NULL);
 
 	d.slot_bytes = sizeof(struct wtd_slot) +
 		       4 * (3 * (size_t)d.n_subaps + (size_t)d.n_act);

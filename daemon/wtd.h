@@ -218,11 +218,11 @@ struct wtd {
 	int evq_head, evq_count;
 
 	/* Access (lib/wt_secure.h), set before the threads start. */
-	bool curve;		    /* daemon.secret_key given */
-	wt_keypair keys;	    /* the daemon's key pair when curve */
-	wt_keylist *clients;	    /* daemon.clients */
-	wt_keylist *writers;	    /* daemon.writers, NULL: every client */
-	wt_zap *zap;		    /* NULL without curve */
+	bool curve;	     /* daemon.secret_key given */
+	wt_keypair keys;     /* the daemon's key pair when curve */
+	wt_keylist *clients; /* daemon.clients */
+	wt_keylist *writers; /* daemon.writers, NULL: every client */
+	wt_zap *zap;	     /* NULL without curve */
 	atomic_ullong read_only_refused; /* requests refused to readers */
 };
 

@@ -75,8 +75,7 @@ static int slurp(const char *path, char **out, mode_t *mode, wt_error *err)
 	buf[len] = '\0';
 	if (strlen(buf) != len) {
 		free(buf);
-		return wt_error_set(err, -EINVAL, "%s: holds a NUL byte",
-				    path);
+		return wt_error_set(err, -EINVAL, "%s: holds a NUL byte", path);
 	}
 	*out = buf;
 	if (mode) {
@@ -130,8 +129,8 @@ static int next_line(char **p, char key[WT_KEY_TEXT])
 }
 
 /* Exactly one key in the file at path. */
-static int read_one_key(const char *path, char key[WT_KEY_TEXT],
-			mode_t *mode, wt_error *err)
+static int read_one_key(const char *path, char key[WT_KEY_TEXT], mode_t *mode,
+			wt_error *err)
 {
 	char *text, *p, k[WT_KEY_TEXT];
 	int rc, line = 0, keys = 0;
@@ -163,8 +162,7 @@ static int read_one_key(const char *path, char key[WT_KEY_TEXT],
 	return 0;
 }
 
-int wt_key_read_public(const char *path, char key[WT_KEY_TEXT],
-		       wt_error *err)
+int wt_key_read_public(const char *path, char key[WT_KEY_TEXT], wt_error *err)
 {
 	if (!path || !key) {
 		return wt_error_set(err, -EINVAL, "key file: NULL argument");
@@ -315,8 +313,9 @@ int wt_secret_read(const char *path, char *out, size_t len, wt_error *err)
 				    "%s)",
 				    path, (unsigned)(mode & 07777), path);
 	}
-	rc = wt_error_set(err, -EINVAL, "%s: no token (one line of at "
-				   "least %d characters)",
+	rc = wt_error_set(err, -EINVAL,
+			  "%s: no token (one line of at "
+			  "least %d characters)",
 			  path, WT_SECRET_MIN);
 	for (line = strtok_r(text, "\r\n", &save); line;
 	     line = strtok_r(NULL, "\r\n", &save)) {
@@ -416,8 +415,10 @@ int wt_keylist_load(const char *path, wt_keylist **out, wt_error *err)
 		memcpy(l->keys[l->n++], k, WT_KEY_TEXT);
 	}
 	if (l->n == 0) {
-		wt_error_set(err, -EINVAL, "%s: no keys (one public key per "
-				      "line)", path);
+		wt_error_set(err, -EINVAL,
+			     "%s: no keys (one public key per "
+			     "line)",
+			     path);
 		goto fail;
 	}
 	free(text);
@@ -551,8 +552,8 @@ static int check_ipc(const char *option, const char *endpoint, bool bind,
 		return 0;
 	}
 	if (!path[0] || strlen(path) >= sizeof(dir)) {
-		return wt_error_set(err, -EINVAL, "%s %s: bad ipc path",
-				    option, endpoint);
+		return wt_error_set(err, -EINVAL, "%s %s: bad ipc path", option,
+				    endpoint);
 	}
 	strcpy(dir, path);
 	slash = strrchr(dir, '/');
@@ -725,8 +726,8 @@ struct wt_zap {
 
 #define ZAP_PARTS 8
 
-static void zap_reply(void *sock, const zmq_msg_t *request_id,
-		      const char *code, const char *text, const char *user)
+static void zap_reply(void *sock, const zmq_msg_t *request_id, const char *code,
+		      const char *text, const char *user)
 {
 	zmq_msg_t id;
 
@@ -798,8 +799,8 @@ static void zap_answer(struct wt_zap *z)
 	if (part_is(&part[5], "CURVE") && zmq_msg_size(&part[6]) == 32) {
 		zmq_z85_encode(key, zmq_msg_data(&part[6]), 32);
 	}
-	if (key[0] && (wt_keylist_has(z->allowed, key) ||
-		       wt_keylist_has(z->also, key))) {
+	if (key[0] &&
+	    (wt_keylist_has(z->allowed, key) || wt_keylist_has(z->also, key))) {
 		atomic_fetch_add(&z->accepted, 1);
 		if (z->log) {
 			wt_log_info(z->log, "CURVE client %s from %s let in",

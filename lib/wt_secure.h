@@ -69,8 +69,7 @@ int wt_key_generate(const char *prefix, wt_keypair *kp, wt_error *err);
 int wt_key_read_secret(const char *path, wt_keypair *kp, wt_error *err);
 
 /** Read a public key file (exactly one key) into key. */
-int wt_key_read_public(const char *path, char key[WT_KEY_TEXT],
-		       wt_error *err);
+int wt_key_read_public(const char *path, char key[WT_KEY_TEXT], wt_error *err);
 
 /** Is text (up to its terminator) a valid Z85 CURVE key? */
 bool wt_key_valid(const char *text);

@@ -105,10 +105,8 @@ static const struct keys *keys(void)
 	make_pair(k, "reader", &k->reader, k->reader_prefix);
 	make_pair(k, "stranger", &k->stranger, k->stranger_prefix);
 	make_pair(k, "sim", &k->sim, NULL);
-	snprintf(k->server_key, sizeof(k->server_key), "%s/server.key",
-		 k->dir);
-	snprintf(k->server_pub, sizeof(k->server_pub), "%s/server.pub",
-		 k->dir);
+	snprintf(k->server_key, sizeof(k->server_key), "%s/server.key", k->dir);
+	snprintf(k->server_pub, sizeof(k->server_pub), "%s/server.pub", k->dir);
 	snprintf(k->sim_key, sizeof(k->sim_key), "%s/sim.key", k->dir);
 	snprintf(k->sim_pub, sizeof(k->sim_pub), "%s/sim.pub", k->dir);
 	snprintf(k->readers, sizeof(k->readers), "%s/readers", k->dir);
@@ -226,13 +224,13 @@ static int handshake(void *ctx, void *sock, const char *endpoint)
 	int event = 0, zero = 0;
 
 	snprintf(name, sizeof(name), "inproc://secure-monitor-%d", serial++);
-	assert_int_equal(
-		zmq_socket_monitor(sock, name,
-				   ZMQ_EVENT_HANDSHAKE_SUCCEEDED |
-					   ZMQ_EVENT_HANDSHAKE_FAILED_PROTOCOL |
-					   ZMQ_EVENT_HANDSHAKE_FAILED_AUTH |
-					   ZMQ_EVENT_HANDSHAKE_FAILED_NO_DETAIL),
-		0);
+	assert_int_equal(zmq_socket_monitor(
+				 sock, name,
+				 ZMQ_EVENT_HANDSHAKE_SUCCEEDED |
+					 ZMQ_EVENT_HANDSHAKE_FAILED_PROTOCOL |
+					 ZMQ_EVENT_HANDSHAKE_FAILED_AUTH |
+					 ZMQ_EVENT_HANDSHAKE_FAILED_NO_DETAIL),
+			 0);
 	mon = zmq_socket(ctx, ZMQ_PAIR);
 	assert_non_null(mon);
 	zmq_setsockopt(mon, ZMQ_LINGER, &zero, sizeof(zero));
@@ -269,8 +267,7 @@ static void assert_handshake(int event, int want)
 		if (event != ZMQ_EVENT_HANDSHAKE_FAILED_NO_DETAIL &&
 		    event != ZMQ_EVENT_HANDSHAKE_FAILED_PROTOCOL &&
 		    event != ZMQ_EVENT_HANDSHAKE_FAILED_AUTH) {
-			fail_msg("handshake event 0x%x, want a failure",
-				 event);
+			fail_msg("handshake event 0x%x, want a failure", event);
 		}
 		return;
 	}
@@ -336,7 +333,8 @@ static bool sees_telemetry(e2e *e, const wt_keypair *kp, int want_event,
 	return seen;
 }
 
-/* --- keys ------------------------------------------------------------------ */
+/* --- keys ------------------------------------------------------------------
+ */
 
 /* `wavetrim keygen` writes a 0600 secret and its public key; libzmq's own
  * zmq_curve_public(3) derives the same public key from the secret. */
@@ -449,7 +447,8 @@ static void key_files_unreadable_or_malformed_refused(void **state)
 	wt_keylist_destroy(l);
 }
 
-/* --- binding rules at start ------------------------------------------------ */
+/* --- binding rules at start ------------------------------------------------
+ */
 
 static void tcp_beyond_loopback_without_keys_refused(void **state)
 {
@@ -564,10 +563,10 @@ static void bad_access_configuration_refused(void **state)
 	e2e_teardown(&e, NULL, NULL);
 }
 
-/* --- CURVE and the allow-list ---------------------------------------------- */
+/* --- CURVE and the allow-list ----------------------------------------------
+ */
 
-static void keyless_or_unlisted_get_no_answer_nor_feed(
-	void **state)
+static void keyless_or_unlisted_get_no_answer_nor_feed(void **state)
 {
 	const struct keys *k;
 	char reply[4096];
@@ -577,9 +576,9 @@ static void keyless_or_unlisted_get_no_answer_nor_feed(
 	start_secure_daemon(&e);
 	k = keys();
 	/* no key: the mechanisms differ (NULL against CURVE, RFC 23) */
-	assert_int_equal(ask(&e, NULL, "open", reply, sizeof(reply),
-			     ANY_FAILURE, 500),
-			 -1);
+	assert_int_equal(
+		ask(&e, NULL, "open", reply, sizeof(reply), ANY_FAILURE, 500),
+		-1);
 	/* a key the daemon has not listed: the ZAP handler says 400 */
 	assert_int_equal(ask(&e, &k->stranger, "open", reply, sizeof(reply),
 			     ZMQ_EVENT_HANDSHAKE_FAILED_AUTH, 500),
@@ -620,8 +619,14 @@ static void listed_clients_command_and_read_telemetry(void **state)
 static void read_only_client_cannot_change_the_mirror(void **state)
 {
 	static const char *const refused[] = {
-		"close", "open", "hold", "flat", "set control.gain 0.9",
-		"calibrate", "save /tmp/wt-never.h5", "shutdown",
+		"close",
+		"open",
+		"hold",
+		"flat",
+		"set control.gain 0.9",
+		"calibrate",
+		"save /tmp/wt-never.h5",
+		"shutdown",
 	};
 	static const char *const answered[] = {
 		"status", "ping", "get control.gain", "config", "help",
@@ -693,10 +698,17 @@ static void cli_speaks_curve_with_key_options(void **state)
 		assert_string_equal(r->err, "wavetrim: read-only client\n");
 	}
 	{
-		char *argv[] = {(char *)CLI_BIN, "-e", e.control, "-w", "500",
-				"--server-key", (char *)k->server_pub,
-				"--client-key", (char *)k->stranger_prefix,
-				"ping", NULL};
+		char *argv[] = {(char *)CLI_BIN,
+				"-e",
+				e.control,
+				"-w",
+				"500",
+				"--server-key",
+				(char *)k->server_pub,
+				"--client-key",
+				(char *)k->stranger_prefix,
+				"ping",
+				NULL};
 
 		assert_int_equal(e2e_run(argv, RUN_MS, r), 0);
 		assert_int_equal(r->status, 2);
@@ -725,9 +737,15 @@ static void example_client_speaks_curve(void **state)
 	{
 		char *argv[] = {"/usr/bin/python3", /* Debian's: python3-zmq */
 				WT_SOURCE_DIR "/tools/example_client.py",
-				e.control, "-t", e.telemetry, "-n", "1",
-				"--server-key", (char *)k->server_pub,
-				"--client-key", (char *)k->reader_prefix,
+				e.control,
+				"-t",
+				e.telemetry,
+				"-n",
+				"1",
+				"--server-key",
+				(char *)k->server_pub,
+				"--client-key",
+				(char *)k->reader_prefix,
 				NULL};
 
 		assert_int_equal(e2e_run(argv, 30000, r), 0);
@@ -743,10 +761,10 @@ static void example_client_speaks_curve(void **state)
 	stop_clean(&e);
 }
 
-/* --- the driver link ------------------------------------------------------- */
+/* --- the driver link -------------------------------------------------------
+ */
 
-static void driver_link_lets_in_the_listed_daemon_only(
-	void **state)
+static void driver_link_lets_in_the_listed_daemon_only(void **state)
 {
 	const struct keys *k = keys();
 	struct ovr o = {0};
@@ -795,9 +813,9 @@ static void driver_link_lets_in_the_listed_daemon_only(
 		 * daemon got nothing */
 		void *s = client_socket(&e, ZMQ_PULL, NULL);
 
-		assert_int_equal(wt_curve_client(s, k->sim.public_key,
-						 &k->server, NULL),
-				 0);
+		assert_int_equal(
+			wt_curve_client(s, k->sim.public_key, &k->server, NULL),
+			0);
 		assert_int_equal(handshake(e.ctx, s, e.frames),
 				 ZMQ_EVENT_HANDSHAKE_FAILED_AUTH);
 		zmq_close(s);
@@ -813,8 +831,8 @@ static void driver_link_lets_in_the_listed_daemon_only(
 
 /* The status code of one HTTP/1.0 GET to 127.0.0.1:port, with an extra
  * header line (or ""); 0 when nothing answers.  The reply is in buf. */
-static int http_get(int port, const char *path, const char *header,
-		    char *buf, size_t cap)
+static int http_get(int port, const char *path, const char *header, char *buf,
+		    size_t cap)
 {
 	struct sockaddr_in a = {.sin_family = AF_INET};
 	char req[512];
@@ -829,8 +847,10 @@ static int http_get(int port, const char *path, const char *header,
 		close(fd);
 		return 0;
 	}
-	snprintf(req, sizeof(req), "GET %s HTTP/1.0\r\nHost: 127.0.0.1:%d\r\n"
-		 "%s\r\n", path, port, header);
+	snprintf(req, sizeof(req),
+		 "GET %s HTTP/1.0\r\nHost: 127.0.0.1:%d\r\n"
+		 "%s\r\n",
+		 path, port, header);
 	assert_int_equal(write(fd, req, strlen(req)), (ssize_t)strlen(req));
 	while (len + 1 < cap && (n = read(fd, buf + len, cap - 1 - len)) > 0) {
 		len += (size_t)n;
@@ -845,9 +865,16 @@ static void view_beyond_loopback_needs_its_token(void **state)
 {
 	const struct keys *k;
 	char listen[64], token[160], *buf;
-	char *argv[] = {(char *)VIEW_BIN, "-c", NULL, "--no-truth",
-			"--listen", listen, "--allow-remote", "--token-file",
-			token, NULL};
+	char *argv[] = {(char *)VIEW_BIN,
+			"-c",
+			NULL,
+			"--no-truth",
+			"--listen",
+			listen,
+			"--allow-remote",
+			"--token-file",
+			token,
+			NULL};
 	e2e_run_result *r;
 	int port = free_port(), code = 0;
 	pid_t pid;
@@ -902,11 +929,13 @@ static void view_beyond_loopback_needs_its_token(void **state)
 	assert_int_equal(code, 401);
 	assert_int_equal(http_get(port, "/api/setup",
 				  "Authorization: Bearer wrong-but-long-"
-				  "enough\r\n", buf, 65536),
+				  "enough\r\n",
+				  buf, 65536),
 			 401);
 	assert_int_equal(http_get(port, "/api/setup",
 				  "Authorization: Bearer sixteen-or-more-"
-				  "characters\r\n", buf, 65536),
+				  "characters\r\n",
+				  buf, 65536),
 			 200);
 	/* a browser: ?token= sets the cookie and goes on to / */
 	assert_int_equal(http_get(port, "/?token=sixteen-or-more-characters",
@@ -915,13 +944,14 @@ static void view_beyond_loopback_needs_its_token(void **state)
 	assert_non_null(strstr(buf, "Set-Cookie: wavetrim-view=sixteen-or-"
 				    "more-characters; Path=/; HttpOnly; "
 				    "SameSite=Strict"));
-	assert_int_equal(http_get(port, "/", "Cookie: wavetrim-view=sixteen-"
-					     "or-more-characters\r\n",
+	assert_int_equal(http_get(port, "/",
+				  "Cookie: wavetrim-view=sixteen-"
+				  "or-more-characters\r\n",
 				  buf, 65536),
 			 200);
-	assert_int_equal(http_get(port, "/?token=wrong-but-long-enough", "",
-				  buf, 65536),
-			 401);
+	assert_int_equal(
+		http_get(port, "/?token=wrong-but-long-enough", "", buf, 65536),
+		401);
 	kill(pid, SIGTERM);
 	assert_int_equal(waitpid(pid, &code, 0), pid);
 	e2e_teardown(&e, NULL, NULL);

@@ -155,8 +155,7 @@ static void zap_lets_in_listed_keys_with_their_user_id(void **state)
 	assert_int_equal(wt_keylist_load(list, &allowed, &err), 0);
 
 	ctx = zmq_ctx_new();
-	assert_int_equal(wt_zap_start(ctx, allowed, NULL, NULL, &zap, &err),
-			 0);
+	assert_int_equal(wt_zap_start(ctx, allowed, NULL, NULL, &zap, &err), 0);
 	rep = zmq_socket(ctx, ZMQ_PULL);
 	zmq_setsockopt(rep, ZMQ_LINGER, &zero, sizeof(zero));
 	assert_int_equal(wt_curve_server(rep, &server, &err), 0);
@@ -180,9 +179,8 @@ static void zap_lets_in_listed_keys_with_their_user_id(void **state)
 	/* b was refused: nowhere to send; a's message arrives with a's key */
 	assert_int_equal(zmq_send(b, "from b", 6, ZMQ_DONTWAIT), -1);
 	assert_int_equal(zmq_send(a, "from a", 6, 0), 6);
-	assert_int_equal(recv_with_user(rep, buf, sizeof(buf), user,
-					sizeof(user)),
-			 6);
+	assert_int_equal(
+		recv_with_user(rep, buf, sizeof(buf), user, sizeof(user)), 6);
 	assert_string_equal(buf, "from a");
 	assert_string_equal(user, listed.public_key);
 	wt_zap_counts(zap, &in, &out);
@@ -195,7 +193,8 @@ static void zap_lets_in_listed_keys_with_their_user_id(void **state)
 	wt_zap_stop(zap);
 	zmq_ctx_term(ctx);
 	wt_keylist_destroy(allowed);
-	for (const char *n = "server\0listed\0other\0"; *n; n += strlen(n) + 1) {
+	for (const char *n = "server\0listed\0other\0"; *n;
+	     n += strlen(n) + 1) {
 		snprintf(prefix, sizeof(prefix), "%s/%s.key", dir, n);
 		unlink(prefix);
 		snprintf(prefix, sizeof(prefix), "%s/%s.pub", dir, n);
