@@ -1054,8 +1054,34 @@ static void do_load(struct wtd_ctl *ctl, const char *path, struct outcome *o)
 	result_end(ctl, &j, o);
 }
 
+/* Words a read-only client may send (they change nothing). */
+static bool read_only_word(int word)
+{
+	return word == WT_REQ_STATUS || word == WT_REQ_PING ||
+	       word == WT_REQ_GET || word == WT_REQ_CONFIG ||
+	       word == WT_REQ_HELP;
+}
+
+/*
+ * May the sender of msg change the mirror?  Without daemon.writers every
+ * client let in may; with it, only a CURVE client whose key (the User-Id
+ * the ZAP handler gave it) is listed.  A message without a User-Id came
+ * over ipc or loopback tcp without CURVE: that client is local.
+ */
+static bool sender_may_write(const struct wtd *d, zmq_msg_t *msg)
+{
+	const char *user;
+
+	if (!d->writers) {
+		return true;
+	}
+	user = zmq_msg_gets(msg, "User-Id");
+	return !user || wt_keylist_has(d->writers, user);
+}
+
 /* One request: the reply text into ctl->reply; returns its length. */
-static int handle(struct wtd_ctl *ctl, const char *line, size_t len)
+static int handle(struct wtd_ctl *ctl, const char *line, size_t len,
+		  bool writer)
 {
 	struct outcome o = {.ok = false};
 	wt_request *req = malloc(sizeof(*req));
@@ -1074,6 +1100,11 @@ static int handle(struct wtd_ctl *ctl, const char *line, size_t len)
 	}
 	wt_log_debug(ctl->d->log, "request: %s",
 		     wt_request_word_name(req->word));
+	if (!writer && !read_only_word(req->word)) {
+		atomic_fetch_add(&ctl->d->read_only_refused, 1);
+		fail(&o, "read-only client");
+		goto done;
+	}
 	switch (req->word) {
 	case WT_REQ_STATUS:
 		do_status(ctl, &o);
@@ -1127,6 +1158,7 @@ static int handle(struct wtd_ctl *ctl, const char *line, size_t len)
 		fail(&o, "not implemented");
 		break;
 	}
+done:
 	free(req);
 	if (!o.ok) {
 		wt_log_info(ctl->d->log, "%.*s: %s", (int)(len < 60 ? len : 60),
@@ -1185,7 +1217,8 @@ void *wtd_control_main(void *arg)
 			/* A measurement that just finished is taken first, so
 			 * a reply never shows it half done. */
 			pick_up_calibration(ctl);
-			n = handle(ctl, zmq_msg_data(&msg), zmq_msg_size(&msg));
+			n = handle(ctl, zmq_msg_data(&msg), zmq_msg_size(&msg),
+				   sender_may_write(d, &msg));
 		}
 		zmq_msg_close(&msg);
 		if (n < 0) {

@@ -118,31 +118,6 @@ refuse(const char *fmt, ...)
 
 /* --- endpoints ------------------------------------------------------------ */
 
-/* mkdir -p of the folder holding an ipc socket file. */
-static void make_parent(const char *path)
-{
-	char dir[sizeof(((struct sockaddr_un *)0)->sun_path)];
-	char *p;
-
-	if (strlen(path) >= sizeof(dir)) {
-		return;
-	}
-	strcpy(dir, path);
-	p = strrchr(dir, '/');
-	if (!p || p == dir) {
-		return;
-	}
-	*p = '\0';
-	for (p = dir + 1; *p; p++) {
-		if (*p == '/') {
-			*p = '\0';
-			mkdir(dir, 0755);
-			*p = '/';
-		}
-	}
-	mkdir(dir, 0755);
-}
-
 /*
  * Is something listening on this ipc endpoint?  ZeroMQ would silently
  * take over the socket file of a running daemon, so look first: a
@@ -203,12 +178,23 @@ static bool daemon_answers(void *zctx, const char *endpoint)
 	return yes;
 }
 
-static void *bind_socket(void *zctx, int type, const char *option,
+static void *bind_socket(struct wtd *d, int type, const char *option,
 			 const char *endpoint, bool is_control)
 {
+	void *zctx = d->zctx;
+	bool curve = d->curve && wt_endpoint_wants_curve(endpoint);
 	int linger = 0;
+	wt_error err;
 	void *s;
 
+	if (wt_endpoint_check(option, endpoint, true, d->curve, &err) < 0) {
+		refuse("%s%s", err.msg,
+		       d->curve || strncmp(endpoint, "ipc://", 6) == 0
+			       ? ""
+			       : " (to serve other hosts, set "
+				 "daemon.secret_key and daemon.clients: see "
+				 "`wavetrim keygen`)");
+	}
 	if (strncmp(endpoint, "ipc://", 6) == 0) {
 		const char *path = endpoint + 6;
 
@@ -221,15 +207,15 @@ static void *bind_socket(void *zctx, int type, const char *option,
 			refuse("%s %s: in use by another program", option,
 			       endpoint);
 		}
-		if (path[0] != '@') {
-			make_parent(path);
-		}
 	}
 	s = zmq_socket(zctx, type);
 	if (!s) {
 		refuse("%s: %s", option, zmq_strerror(zmq_errno()));
 	}
 	zmq_setsockopt(s, ZMQ_LINGER, &linger, sizeof(linger));
+	if (curve && wt_curve_server(s, &d->keys, &err) < 0) {
+		refuse("%s %s: %s", option, endpoint, err.msg);
+	}
 	if (zmq_bind(s, endpoint) != 0) {
 		int e = zmq_errno();
 
@@ -238,16 +224,27 @@ static void *bind_socket(void *zctx, int type, const char *option,
 	return s;
 }
 
-static void *connect_socket(void *zctx, int type, const char *option,
-			    const char *endpoint)
+static void *connect_socket(struct wtd *d, int type, const char *option,
+			    const char *endpoint, const char *driver_public)
 {
 	int zero = 0, hwm = 4;
-	void *s = zmq_socket(zctx, type);
+	void *s = zmq_socket(d->zctx, type);
+	wt_error err;
 
 	if (!s) {
 		refuse("%s: %s", option, zmq_strerror(zmq_errno()));
 	}
 	zmq_setsockopt(s, ZMQ_LINGER, &zero, sizeof(zero));
+	if (wt_endpoint_check(option, endpoint, false, driver_public != NULL,
+			      &err) < 0) {
+		refuse("%s (to reach a driver on another host, set "
+		       "driver.public_key and daemon.secret_key)",
+		       err.msg);
+	}
+	if (driver_public && wt_endpoint_wants_curve(endpoint) &&
+	    wt_curve_client(s, driver_public, &d->keys, &err) < 0) {
+		refuse("%s %s: %s", option, endpoint, err.msg);
+	}
 	if (type == ZMQ_PULL) {
 		/*
 		 * No ZMQ_CONFLATE: in libzmq 4.3.4 a conflating pipe
@@ -275,6 +272,70 @@ static void *connect_socket(void *zctx, int type, const char *option,
 		       zmq_strerror(zmq_errno()));
 	}
 	return s;
+}
+
+/* --- access (lib/wt_secure.h) ------------------------------------------ */
+
+/*
+ * Keys and allow-lists from the configuration; the ZAP handler when the
+ * daemon has a secret key.  Every problem refuses start-up.  The driver's
+ * public key, when given, goes to driver_public.
+ */
+static void set_up_access(struct wtd *d, char driver_public[WT_KEY_TEXT],
+			  bool *have_driver_key)
+{
+	const char *secret = wt_config_string(d->cfg, WT_OPT_DAEMON_SECRET_KEY);
+	const char *clients = wt_config_string(d->cfg, WT_OPT_DAEMON_CLIENTS);
+	const char *writers = wt_config_string(d->cfg, WT_OPT_DAEMON_WRITERS);
+	const char *driver = wt_config_string(d->cfg, WT_OPT_DRIVER_PUBLIC_KEY);
+	wt_error err;
+
+	*have_driver_key = false;
+	if (!secret[0]) {
+		if (clients[0] || writers[0] || driver[0]) {
+			refuse("%s needs daemon.secret_key (the daemon's own "
+			       "CURVE key pair, see `wavetrim keygen`)",
+			       clients[0]   ? "daemon.clients"
+			       : writers[0] ? "daemon.writers"
+					    : "driver.public_key");
+		}
+		return;
+	}
+	if (!zmq_has("curve")) {
+		refuse("daemon.secret_key: this libzmq has no CURVE");
+	}
+	if (!clients[0]) {
+		refuse("daemon.secret_key needs daemon.clients: CURVE without "
+		       "an allow-list would let in anyone who has the "
+		       "daemon's public key");
+	}
+	if (wt_key_read_secret(secret, &d->keys, &err) < 0) {
+		refuse("daemon.secret_key %s", err.msg);
+	}
+	if (wt_keylist_load(clients, &d->clients, &err) < 0) {
+		refuse("daemon.clients %s", err.msg);
+	}
+	if (writers[0] && wt_keylist_load(writers, &d->writers, &err) < 0) {
+		refuse("daemon.writers %s", err.msg);
+	}
+	if (driver[0]) {
+		if (wt_key_read_public(driver, driver_public, &err) < 0) {
+			refuse("driver.public_key %s", err.msg);
+		}
+		*have_driver_key = true;
+	}
+	d->curve = true;
+	if (wt_zap_start(d->zctx, d->clients, d->writers, d->log, &d->zap,
+			 &err) < 0) {
+		refuse("%s", err.msg);
+	}
+	wt_log_notice(
+		d->log,
+		"CURVE: public key %s; %zu keys listed, %s may change the "
+		"mirror",
+		d->keys.public_key,
+		wt_keylist_count(d->clients) + wt_keylist_count(d->writers),
+		d->writers ? "only daemon.writers" : "all of them");
 }
 
 /* --- the loop thread's scheduling
@@ -339,6 +400,8 @@ int main(int argc, char **argv)
 	struct sigaction sa;
 	sigset_t block, old;
 	double lo, hi;
+	char driver_public[WT_KEY_TEXT];
+	bool have_driver_key;
 
 	/* First of all, so that a signal during start-up stops us cleanly
 	 * too (no SA_RESTART: blocking calls return EINTR and look at the
@@ -445,18 +508,21 @@ int main(int argc, char **argv)
 	if (!d.zctx) {
 		refuse("ZeroMQ: %s", zmq_strerror(zmq_errno()));
 	}
+	set_up_access(&d, driver_public, &have_driver_key);
 	d.s_control = bind_socket(
-		d.zctx, ZMQ_REP, "daemon.control",
+		&d, ZMQ_REP, "daemon.control",
 		wt_config_string(d.cfg, WT_OPT_DAEMON_CONTROL), true);
 	d.s_telemetry = bind_socket(
-		d.zctx, ZMQ_PUB, "daemon.telemetry",
+		&d, ZMQ_PUB, "daemon.telemetry",
 		wt_config_string(d.cfg, WT_OPT_DAEMON_TELEMETRY), false);
 	d.s_frames =
-		connect_socket(d.zctx, ZMQ_PULL, "driver.frames",
-			       wt_config_string(d.cfg, WT_OPT_DRIVER_FRAMES));
+		connect_socket(&d, ZMQ_PULL, "driver.frames",
+			       wt_config_string(d.cfg, WT_OPT_DRIVER_FRAMES),
+			       have_driver_key ? driver_public : NULL);
 	d.s_commands =
-		connect_socket(d.zctx, ZMQ_PUSH, "driver.commands",
-			       wt_config_string(d.cfg, WT_OPT_DRIVER_COMMANDS));
+		connect_socket(&d, ZMQ_PUSH, "driver.commands",
+			       wt_config_string(d.cfg, WT_OPT_DRIVER_COMMANDS),
+			       have_driver_key ? driver_public : NULL);
 
 	d.slot_bytes = sizeof(struct wtd_slot) +
 		       4 * (3 * (size_t)d.n_subaps + (size_t)d.n_act);
@@ -515,7 +581,11 @@ int main(int argc, char **argv)
 	wtd_control_destroy(&d);
 	wtd_loop_destroy(&d);
 	wt_ring_destroy(d.ring);
+	wt_zap_stop(d.zap);
 	zmq_ctx_term(d.zctx);
+	wt_keylist_destroy(d.clients);
+	wt_keylist_destroy(d.writers);
+	memset(&d.keys, 0, sizeof(d.keys));
 	for (int k = 0; k < d.evq_count; k++) {
 		free(d.evq[(d.evq_head + k) % WTD_EVQ]);
 	}

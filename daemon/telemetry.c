@@ -271,6 +271,23 @@ void wtd_status_json(struct wtd *d, wt_json *j, const double *sv, int n_sv)
 	}
 	wt_json_object_end(j);
 
+	wt_json_key(j, "access");
+	wt_json_object_begin(j);
+	{
+		uint64_t let_in, refused;
+
+		wt_zap_counts(d->zap, &let_in, &refused);
+		wt_json_key(j, "curve");
+		wt_json_bool(j, d->curve);
+		wt_json_key(j, "let_in");
+		wt_json_uint(j, let_in);
+		wt_json_key(j, "refused");
+		wt_json_uint(j, refused);
+		wt_json_key(j, "read_only_refused");
+		wt_json_uint(j, get(&d->read_only_refused));
+	}
+	wt_json_object_end(j);
+
 	wt_json_key(j, "gain");
 	wt_json_double(j, s.gain);
 	wt_json_key(j, "leak");

@@ -40,6 +40,7 @@
 #include "wt_log.h"
 #include "wt_request.h"
 #include "wt_ring.h"
+#include "wt_secure.h"
 #include "wt_store.h"
 
 /** zmq_poll slice of the loop thread: how quickly it notices the mailbox,
@@ -227,6 +228,14 @@ struct wtd {
 	pthread_mutex_t evq_mu;
 	char *evq[WTD_EVQ];
 	int evq_head, evq_count;
+
+	/* Access (lib/wt_secure.h), set before the threads start. */
+	bool curve;	     /* daemon.secret_key given */
+	wt_keypair keys;     /* the daemon's key pair when curve */
+	wt_keylist *clients; /* daemon.clients */
+	wt_keylist *writers; /* daemon.writers, NULL: every client */
+	wt_zap *zap;	     /* NULL without curve */
+	atomic_ullong read_only_refused; /* requests refused to readers */
 };
 
 /* loop.c */

@@ -56,6 +56,16 @@
  *   missing arguments, extra arguments and bad numbers are refused with a
  *   reason; nothing is ever half done.
  *
+ * Access
+ * ------
+ * ipc endpoints are reachable by whoever may enter their folder (mode
+ * 0700: only the daemon's user); tcp endpoints without CURVE only on a
+ * loopback address.  With daemon.secret_key, tcp endpoints use CURVE and
+ * only clients whose public key is in daemon.clients or daemon.writers get
+ * in (lib/wt_secure.h).  When daemon.writers is set, a CURVE client not on
+ * it is read-only: status, ping, get, config and help are answered, any
+ * other word is refused with "read-only client" and counted.
+ *
  * Words
  * -----
  * status                 RESULT: the status object (section 3), with the
@@ -212,6 +222,11 @@
  *              "faults":N},
  *    "refused":{"short":N,"magic":N,"version":N,"kind":N,"dims":N,
  *               "payload":N,"length":N},   refused messages by reason
+ *    "access":{"curve":BOOL,      daemon.secret_key is set
+ *              "let_in":N,       CURVE clients the ZAP handler let in
+ *              "refused":N,      CURVE handshakes refused (unlisted key)
+ *              "read_only_refused":N}, requests refused to read-only
+ *                                clients ("read-only client")
  *    "gain":NUMBER,"leak":NUMBER,
  *    "modes":N,                  modes in the installed control matrix
  *                                (0: none)

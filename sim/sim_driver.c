@@ -12,6 +12,7 @@
 
 #include "wt_clock.h"
 #include "wt_proto.h"
+#include "wt_secure.h"
 
 /* Frames queued in ZeroMQ at most; frame buffers in the pool. */
 #define SIM_FRAME_HWM 4
@@ -32,6 +33,11 @@ struct sim_driver {
 	sim_world *world;
 	wt_log *log;
 	void *ctx, *frames, *commands, *truth;
+	/* access (lib/wt_secure.h): sim.secret_key and sim.clients */
+	bool curve;
+	wt_keypair keys;
+	wt_keylist *clients;
+	wt_zap *zap;
 	int mode, delay, timeout_ms;
 	double period_s;
 	int width, n_act;
@@ -169,28 +175,43 @@ int sim_truth_decode(const void *msg, size_t len, sim_truth *t)
 
 /* ---- set-up ------------------------------------------------------------ */
 
-/* For ipc://DIR/NAME make DIR when it is missing (one level). */
-static void sim_ipc_dir(const char *endpoint)
+/* sim.secret_key and sim.clients: CURVE on the tcp endpoints, with a ZAP
+ * handler that lets in the listed keys only. */
+static int sim_access(sim_driver *d, const wt_config *cfg, wt_error *err)
 {
-	char path[256];
-	char *slash;
+	const char *secret = wt_config_string(cfg, WT_OPT_SIM_SECRET_KEY);
+	const char *clients = wt_config_string(cfg, WT_OPT_SIM_CLIENTS);
+	int rc;
 
-	if (strncmp(endpoint, "ipc://", 6) != 0 ||
-	    strlen(endpoint + 6) >= sizeof(path)) {
-		return;
+	if (!secret[0]) {
+		if (clients[0]) {
+			return wt_error_set(err, -EINVAL,
+					    "sim.clients needs sim.secret_key");
+		}
+		return 0;
 	}
-	strcpy(path, endpoint + 6);
-	slash = strrchr(path, '/');
-	if (slash && slash != path) {
-		*slash = '\0';
-		(void)mkdir(path, 0755);
+	if (!clients[0]) {
+		return wt_error_set(err, -EINVAL,
+				    "sim.secret_key needs sim.clients: CURVE "
+				    "without an allow-list would let in "
+				    "anyone");
 	}
+	rc = wt_key_read_secret(secret, &d->keys, err);
+	if (rc < 0) {
+		return rc;
+	}
+	rc = wt_keylist_load(clients, &d->clients, err);
+	if (rc < 0) {
+		return rc;
+	}
+	d->curve = true;
+	return wt_zap_start(d->ctx, d->clients, NULL, d->log, &d->zap, err);
 }
 
 static int sim_socket(sim_driver *d, int type, const char *name,
 		      const char *endpoint, void **out, wt_error *err)
 {
-	int zero = 0, hwm = SIM_FRAME_HWM, slice = SIM_SLICE_MS;
+	int zero = 0, hwm = SIM_FRAME_HWM, slice = SIM_SLICE_MS, rc;
 	void *s = zmq_socket(d->ctx, type);
 
 	if (!s) {
@@ -203,7 +224,13 @@ static int sim_socket(sim_driver *d, int type, const char *name,
 		zmq_setsockopt(s, ZMQ_SNDHWM, &hwm, sizeof(hwm));
 		zmq_setsockopt(s, ZMQ_SNDTIMEO, &slice, sizeof(slice));
 	}
-	sim_ipc_dir(endpoint);
+	rc = wt_endpoint_check(name, endpoint, true, d->curve, err);
+	if (rc == 0 && d->curve && wt_endpoint_wants_curve(endpoint)) {
+		rc = wt_curve_server(s, &d->keys, err);
+	}
+	if (rc < 0) {
+		return rc;
+	}
 	if (zmq_bind(s, endpoint) != 0) {
 		return wt_error_set(err, -errno, "%s: bind %s: %s", name,
 				    endpoint, zmq_strerror(errno));
@@ -276,9 +303,12 @@ int sim_driver_create(const wt_config *cfg, wt_log *log, sim_driver **out,
 		rc = wt_error_set(err, -ENOMEM, "sim: zmq_ctx_new failed");
 		goto fail;
 	}
-	rc = sim_socket(d, ZMQ_PUSH, "driver.frames",
-			wt_config_string(cfg, WT_OPT_DRIVER_FRAMES), &d->frames,
-			err);
+	rc = sim_access(d, cfg, err);
+	if (rc == 0) {
+		rc = sim_socket(d, ZMQ_PUSH, "driver.frames",
+				wt_config_string(cfg, WT_OPT_DRIVER_FRAMES),
+				&d->frames, err);
+	}
 	if (rc == 0) {
 		rc = sim_socket(d, ZMQ_PULL, "driver.commands",
 				wt_config_string(cfg, WT_OPT_DRIVER_COMMANDS),
@@ -320,6 +350,8 @@ void sim_driver_destroy(sim_driver *d)
 	if (d->truth) {
 		zmq_close(d->truth);
 	}
+	wt_zap_stop(d->zap);
+	wt_keylist_destroy(d->clients);
 	if (d->ctx) {
 		/* every socket has linger 0, so this returns; it also waits
 		 * for the I/O thread to release the frame buffers */

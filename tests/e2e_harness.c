@@ -122,11 +122,21 @@ static int write_ini(const e2e *e, const char *path, const char *frames,
 		fclose(f);
 		return -1;
 	}
-	put_option(f, "driver.frames", frames);
-	put_option(f, "driver.commands", commands);
-	put_option(f, "daemon.control", e->control);
-	put_option(f, "daemon.telemetry", e->telemetry);
-	put_option(f, "sim.truth", e->truth);
+	if (!listed(overrides, "driver.frames", 13)) {
+		put_option(f, "driver.frames", frames);
+	}
+	if (!listed(overrides, "driver.commands", 15)) {
+		put_option(f, "driver.commands", commands);
+	}
+	if (!listed(overrides, "daemon.control", 14)) {
+		put_option(f, "daemon.control", e->control);
+	}
+	if (!listed(overrides, "daemon.telemetry", 16)) {
+		put_option(f, "daemon.telemetry", e->telemetry);
+	}
+	if (!listed(overrides, "sim.truth", 9)) {
+		put_option(f, "sim.truth", e->truth);
+	}
 	for (const char *const *o = overrides; o && *o; o++) {
 		char name[192];
 		const char *eq = strchr(*o, '=');
@@ -139,6 +149,22 @@ static int write_ini(const e2e *e, const char *path, const char *frames,
 		put_option(f, name, eq + 1);
 	}
 	return fclose(f) == 0 ? 0 : -1;
+}
+
+/* An override of a moved endpoint is the endpoint (into a and b, 256). */
+static void take_endpoint(const char *const *overrides, const char *name,
+			  char *a, char *b)
+{
+	size_t n = strlen(name);
+
+	for (const char *const *o = overrides; o && *o; o++) {
+		if (strncmp(*o, name, n) == 0 && (*o)[n] == '=') {
+			snprintf(a, 256, "%s", *o + n + 1);
+			if (b) {
+				snprintf(b, 256, "%s", *o + n + 1);
+			}
+		}
+	}
 }
 
 /* Folder, endpoint names and the simulator's INI. */
@@ -161,6 +187,12 @@ static int setup_common(e2e *e, const char *const *overrides)
 	snprintf(e->daemon_frames, sizeof(e->daemon_frames), "%s", e->frames);
 	snprintf(e->daemon_commands, sizeof(e->daemon_commands), "%s",
 		 e->commands);
+	take_endpoint(overrides, "driver.frames", e->frames, e->daemon_frames);
+	take_endpoint(overrides, "driver.commands", e->commands,
+		      e->daemon_commands);
+	take_endpoint(overrides, "daemon.control", e->control, NULL);
+	take_endpoint(overrides, "daemon.telemetry", e->telemetry, NULL);
+	take_endpoint(overrides, "sim.truth", e->truth, NULL);
 	return write_ini(e, e->ini, e->frames, e->commands, overrides);
 }
 
@@ -330,6 +362,10 @@ int e2e_request(e2e *e, const char *fmt, ...)
 	e->reply[0] = '\0';
 	zmq_setsockopt(req, ZMQ_LINGER, &zero, sizeof(zero));
 	zmq_setsockopt(req, ZMQ_RCVTIMEO, &timeout, sizeof(timeout));
+	if (e->server_key[0] && wt_endpoint_wants_curve(e->control) &&
+	    wt_curve_client(req, e->server_key, &e->client, NULL) < 0) {
+		goto out;
+	}
 	if (zmq_connect(req, e->control) != 0 ||
 	    zmq_send(req, line, strlen(line), 0) < 0) {
 		goto out;

@@ -4,7 +4,9 @@
  * control protocol, judged by the simulator's truth stream.
  *
  * The scenario is config/demo.ini with the endpoints moved into the
- * temporary folder and any option a test overrides replaced.
+ * temporary folder and any option a test overrides replaced (an override
+ * of an endpoint, e.g. "daemon.control=tcp://127.0.0.1:5000", replaces the
+ * moved one and is what the harness uses).
  */
 #ifndef E2E_HARNESS_H
 #define E2E_HARNESS_H
@@ -14,6 +16,7 @@
 #include <sys/types.h>
 
 #include "sim_driver.h"
+#include "wt_secure.h"
 
 #define E2E_REPLY_MAX 65536
 
@@ -33,6 +36,10 @@ typedef struct e2e {
 	void *ctx;
 	void *truth_sub;
 	char reply[E2E_REPLY_MAX]; /**< last control reply */
+	/** When server_key is set, e2e_request() is a CURVE client of that
+	 * key with the pair `client` (on endpoints that use CURVE). */
+	char server_key[WT_KEY_TEXT];
+	wt_keypair client;
 } e2e;
 
 /**

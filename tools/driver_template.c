@@ -45,6 +45,7 @@
 #include "wt_config.h"
 #include "wt_geometry.h"
 #include "wt_proto.h"
+#include "wt_secure.h"
 
 #define NAME	   "driver_template"
 #define REPORT_MAX 10 /* refusals described on stderr; the rest counted */
@@ -244,9 +245,19 @@ static int serve_commands(struct driver *d, void *sock, zmq_msg_t *msg,
 
 static void *bind_socket(void *ctx, int type, const char *endpoint)
 {
-	void *s = zmq_socket(ctx, type);
+	void *s;
 	int zero = 0, hwm = 4;
+	wt_error err;
 
+	/* ipc only in a folder of mode 0700, tcp only on loopback: for
+	 * another host, add CURVE as sim/sim_driver.c does (sim_access) */
+	if (wt_endpoint_check(type == ZMQ_PUSH ? "driver.frames"
+					       : "driver.commands",
+			      endpoint, true, false, &err) < 0) {
+		fprintf(stderr, NAME ": %s\n", err.msg);
+		return NULL;
+	}
+	s = zmq_socket(ctx, type);
 	/* Without LINGER 0, zmq_ctx_term waits for unsent frames forever;
 	 * a short queue drops frames when the daemon lags, not queue old. */
 	zmq_setsockopt(s, ZMQ_LINGER, &zero, sizeof(zero));

@@ -3,7 +3,9 @@
 telemetry status messages (needs Debian's python3-zmq: run /usr/bin/python3).
 Control: REQ/REP, a line of words out, a JSON object with "ok" back.
 Telemetry: PUB, "status {json}", "event {json}", "frame <binary>".  Exit 0
-when every reply was well formed (refusals are), 1 if not, 2 on no answer."""
+when every reply was well formed (refusals are), 1 if not, 2 on no answer.
+Over tcp to a daemon with CURVE keys: --server-key FILE (its public key)
+--client-key PREFIX (our pair, PREFIX.key, made by `wavetrim keygen`)."""
 import argparse
 import configparser
 import json
@@ -24,6 +26,37 @@ def endpoints(args):
     return args.control or control, args.telemetry or telemetry
 
 
+def read_key(path):
+    """The one Z85 key in a key file: a line whose first word is 40
+    characters; blank lines and '#' comments are skipped."""
+    keys = []
+    with open(path, encoding="ascii") as f:
+        for line in f:
+            words = line.split()
+            if words and len(words[0]) == 40:
+                keys.append(words[0])
+            elif words and not words[0].startswith("#"):
+                raise SystemExit(f"{path}: not a key file")
+    if len(keys) != 1:
+        raise SystemExit(f"{path}: holds {len(keys)} keys, want one")
+    return keys[0].encode("ascii")
+
+
+def use_keys(sock, endpoint, args):
+    """CURVE client on every transport but ipc and inproc (as the daemon)."""
+    if not (args.server_key or args.client_key):
+        return
+    if not (args.server_key and args.client_key):
+        raise SystemExit("CURVE needs both --server-key and --client-key")
+    if endpoint.startswith(("ipc://", "inproc://")):
+        return
+    path = args.client_key
+    secret = read_key(path if path.endswith(".key") else path + ".key")
+    sock.curve_secretkey = secret
+    sock.curve_publickey = zmq.curve_public(secret)
+    sock.curve_serverkey = read_key(args.server_key)
+
+
 def as_object(raw):
     try:
         value = json.loads(raw)
@@ -39,6 +72,8 @@ def main():
     p.add_argument("-c", "--config", help="INI file: [daemon] endpoints")
     p.add_argument("-n", "--count", type=int, default=3, help="statuses")
     p.add_argument("-w", "--timeout-ms", type=int, default=5000)
+    p.add_argument("--server-key", help="the daemon's CURVE public key file")
+    p.add_argument("--client-key", help="our CURVE key pair: PREFIX(.key)")
     args = p.parse_args()
     control, telemetry = endpoints(args)
     bad, wait = 0, args.timeout_ms
@@ -46,6 +81,8 @@ def main():
             ctx.socket(zmq.REQ) as req:
         for sock in (sub, req):
             sock.linger, sock.rcvtimeo = 0, wait  # never hang on exit
+        use_keys(sub, telemetry, args)
+        use_keys(req, control, args)
         sub.subscribe("status ")  # topic = the text before the first space
         sub.connect(telemetry)  # first, so that statuses queue meanwhile
         req.connect(control)

@@ -10,6 +10,8 @@
  *   wavetrim [--json] calibration show FILE
  *                                     print a calibration file's report
  *                                     (no daemon needed)
+ *   wavetrim keygen PREFIX            write a CURVE key pair, PREFIX.key
+ *                                     (secret, mode 0600) and PREFIX.pub
  *
  * The request is the words joined by spaces (a word holding a space or a
  * quote is sent double-quoted); the reply is one JSON object.  By default the
@@ -34,12 +36,46 @@
 #include "wt_image.h"
 #include "wt_jsonparse.h"
 #include "wt_store.h"
+#include "wt_secure.h"
 
 #define REQUEST_MAX 4096
 #define REPLY_MAX   (1 << 20)
 #define TOKENS_MAX  16384
 
 static volatile sig_atomic_t stop_flag;
+
+/* --server-key and --client-key (NULL: no CURVE), set once by main. */
+static const char *server_key_file, *client_key_prefix;
+
+/* Make sock a CURVE client when keys were given and endpoint is tcp. */
+static int use_keys(void *sock, const char *endpoint)
+{
+	wt_error err;
+
+	if (wt_curve_client_files(sock, endpoint, server_key_file,
+				  client_key_prefix, &err) < 0) {
+		fprintf(stderr, "wavetrim: %s\n", err.msg);
+		return -1;
+	}
+	return 0;
+}
+
+/* keygen PREFIX */
+static int do_keygen(const char *prefix)
+{
+	wt_keypair kp;
+	wt_error err;
+
+	if (wt_key_generate(prefix, &kp, &err) < 0) {
+		fprintf(stderr, "wavetrim: keygen: %s\n", err.msg);
+		return 2;
+	}
+	printf("%s.key: secret key (mode 0600, keep it private)\n"
+	       "%s.pub: public key %s\n",
+	       prefix, prefix, kp.public_key);
+	memset(&kp, 0, sizeof(kp));
+	return 0;
+}
 
 static void on_signal(int sig)
 {
@@ -63,6 +99,11 @@ static void usage(FILE *out)
 		"       wavetrim [--json] calibration show FILE\n"
 		"                                       print the report and "
 		"summary of a file\n"
+		"       wavetrim keygen PREFIX          write a CURVE key "
+		"pair: "
+		"PREFIX.key\n"
+		"                                       (secret, 0600) and "
+		"PREFIX.pub\n"
 		"\n"
 		"options:\n"
 		"  -c, --config FILE       read the daemon's endpoints from "
@@ -76,6 +117,12 @@ static void usage(FILE *out)
 		"wait for the report\n"
 		"  -w, --timeout MS        give up after MS milliseconds "
 		"(default 5000)\n"
+		"      --server-key FILE   the daemon's CURVE public key "
+		"(tcp endpoints)\n"
+		"      --client-key PREFIX our CURVE key pair (PREFIX.key), "
+		"listed in the\n"
+		"                          daemon's daemon.clients or "
+		"daemon.writers\n"
 		"  -h, --help              this text\n"
 		"\n"
 		"Ask the daemon for its words with `wavetrim help`.\n");
@@ -224,6 +271,9 @@ static int do_request(void *ctx, const char *endpoint, const char *line,
 	zmq_setsockopt(sock, ZMQ_LINGER, &zero, sizeof(zero));
 	zmq_setsockopt(sock, ZMQ_RCVTIMEO, &timeout_ms, sizeof(timeout_ms));
 	zmq_setsockopt(sock, ZMQ_SNDTIMEO, &timeout_ms, sizeof(timeout_ms));
+	if (use_keys(sock, endpoint) < 0) {
+		goto out;
+	}
 	if (zmq_connect(sock, endpoint) != 0) {
 		fprintf(stderr, "wavetrim: cannot connect to %s: %s\n",
 			endpoint, zmq_strerror(errno));
@@ -342,6 +392,9 @@ static int do_snapshot(void *ctx, const wt_config *cfg, const char *control,
 	zmq_setsockopt(sock, ZMQ_RCVTIMEO, &slice, sizeof(slice));
 	zmq_setsockopt(sock, ZMQ_SUBSCRIBE, topic, skip);
 	zmq_setsockopt(sock, ZMQ_SUBSCRIBE, WT_IMAGE_TOPIC, skip);
+	if (use_keys(sock, telemetry) < 0) {
+		goto out;
+	}
 	if (zmq_connect(sock, telemetry) != 0) {
 		fprintf(stderr, "wavetrim: cannot connect to %s: %s\n",
 			telemetry, zmq_strerror(errno));
@@ -407,6 +460,9 @@ static int do_watch(void *ctx, const char *endpoint, long count, int json,
 	zmq_setsockopt(sock, ZMQ_LINGER, &zero, sizeof(zero));
 	zmq_setsockopt(sock, ZMQ_RCVTIMEO, &timeout_ms, sizeof(timeout_ms));
 	zmq_setsockopt(sock, ZMQ_SUBSCRIBE, topic, strlen(topic));
+	if (use_keys(sock, endpoint) < 0) {
+		goto out;
+	}
 	if (zmq_connect(sock, endpoint) != 0) {
 		fprintf(stderr, "wavetrim: cannot connect to %s: %s\n",
 			endpoint, zmq_strerror(errno));
@@ -472,6 +528,9 @@ static int do_calibrate_wait(void *ctx, const char *control,
 	zmq_setsockopt(sock, ZMQ_RCVTIMEO, &slice, sizeof(slice));
 	zmq_setsockopt(sock, ZMQ_SUBSCRIBE, ev, strlen(ev));
 	zmq_setsockopt(sock, ZMQ_SUBSCRIBE, st, strlen(st));
+	if (use_keys(sock, telemetry) < 0) {
+		goto out;
+	}
 	if (zmq_connect(sock, telemetry) != 0) {
 		fprintf(stderr, "wavetrim: cannot connect to %s: %s\n",
 			telemetry, zmq_strerror(errno));
@@ -653,6 +712,8 @@ int main(int argc, char **argv)
 		{"no-wait", no_argument, NULL, 'n'},
 		{"timeout", required_argument, NULL, 'w'},
 		{"help", no_argument, NULL, 'h'},
+		{"server-key", required_argument, NULL, 'S'},
+		{"client-key", required_argument, NULL, 'K'},
 		{NULL, 0, NULL, 0},
 	};
 	wt_config *cfg = NULL;
@@ -697,6 +758,12 @@ int main(int argc, char **argv)
 				return 2;
 			}
 			break;
+		case 'S':
+			server_key_file = optarg;
+			break;
+		case 'K':
+			client_key_prefix = optarg;
+			break;
 		case 'h':
 			usage(stdout);
 			return 0;
@@ -717,6 +784,13 @@ int main(int argc, char **argv)
 			return 2;
 		}
 		return do_show(argv[optind + 2], json);
+	}
+	if (strcmp(argv[optind], "keygen") == 0) {
+		if (argc - optind != 2) {
+			fprintf(stderr, "wavetrim: usage: keygen PREFIX\n");
+			return 2;
+		}
+		return do_keygen(argv[optind + 1]);
 	}
 	if (wt_config_create(&cfg, &err) != 0) {
 		fprintf(stderr, "wavetrim: %s\n", err.msg);

@@ -44,6 +44,10 @@ struct view {
 	char control_ep[256], telemetry_ep[256], truth_ep[256];
 	void *zctx;
 	bool allow_remote;
+	/* --server-key and --client-key (NULL: no CURVE); --token-file's
+	 * token, which every HTTP request must show when token[0] */
+	const char *server_key_file, *client_key_prefix;
+	char token[128];
 	int port;
 	char listen_host[128];
 	const char *www_dir; /* NULL: the page built into the binary */

@@ -19,6 +19,12 @@
  * header X-Wavetrim-View (a page of another origin cannot add it without a
  * CORS preflight, which we never grant), and unless --allow-remote the Host
  * header must name the loopback address (DNS rebinding).
+ *
+ * With --token-file (required beyond loopback) every request must show the
+ * token: the header "Authorization: Bearer TOKEN", or the cookie
+ * wavetrim-view=TOKEN that GET /?token=TOKEN sets (HttpOnly, SameSite
+ * Strict) before sending the browser on to / without the token in the
+ * address.  Anything else gets 401.
  */
 #include <errno.h>
 #include <fcntl.h>
@@ -39,6 +45,7 @@
 #include "wt_clock.h"
 #include "wt_json.h"
 #include "wt_request.h"
+#include "wt_secure.h"
 
 /* The daemon's answer to a forwarded request: wait this long. */
 #define FORWARD_TIMEOUT_MS 3000
@@ -519,7 +526,9 @@ static enum MHD_Result forward(struct view *v, struct MHD_Connection *con,
 	zmq_setsockopt(s, ZMQ_RCVTIMEO, &rcv, sizeof(rcv));
 	zmq_setsockopt(s, ZMQ_SNDTIMEO, &snd, sizeof(snd));
 	zmq_msg_init(&m);
-	if (zmq_connect(s, v->control_ep) != 0 ||
+	if (wt_curve_client_files(s, v->control_ep, v->server_key_file,
+				  v->client_key_prefix, NULL) < 0 ||
+	    zmq_connect(s, v->control_ep) != 0 ||
 	    zmq_send(s, line, strlen(line), 0) < 0 ||
 	    zmq_msg_recv(&m, s, 0) < 0) {
 		char why[512];
@@ -593,6 +602,80 @@ static bool host_ok(const struct view *v, struct MHD_Connection *con)
 	return false;
 }
 
+/* The cookie's value in a Cookie header ("a=b; wavetrim-view=T; c=d"). */
+static bool cookie_token(const char *cookies, char *out, size_t len)
+{
+	static const char name[] = "wavetrim-view=";
+	const char *p = cookies;
+
+	while (p && *p) {
+		while (*p == ' ' || *p == ';') {
+			p++;
+		}
+		if (strncmp(p, name, sizeof(name) - 1) == 0) {
+			size_t n;
+
+			p += sizeof(name) - 1;
+			n = strcspn(p, ";");
+			if (n >= len) {
+				return false;
+			}
+			memcpy(out, p, n);
+			out[n] = '\0';
+			return true;
+		}
+		p = strchr(p, ';');
+	}
+	return false;
+}
+
+/* Does the request show the token (when one is set)? */
+static bool token_ok(const struct view *v, struct MHD_Connection *con)
+{
+	const char *auth, *cookies;
+	char shown[sizeof(v->token)];
+
+	if (!v->token[0]) {
+		return true;
+	}
+	auth = MHD_lookup_connection_value(con, MHD_HEADER_KIND,
+					   "Authorization");
+	if (auth && strncmp(auth, "Bearer ", 7) == 0) {
+		return wt_secret_equal(auth + 7, v->token);
+	}
+	cookies = MHD_lookup_connection_value(con, MHD_HEADER_KIND, "Cookie");
+	return cookie_token(cookies, shown, sizeof(shown)) &&
+	       wt_secret_equal(shown, v->token);
+}
+
+/* GET /?token=TOKEN: keep it in a cookie, send the browser on to /. */
+static enum MHD_Result serve_login(struct view *v, struct MHD_Connection *con,
+				   const char *token)
+{
+	struct MHD_Response *r;
+	enum MHD_Result ret;
+	char cookie[sizeof(v->token) + 96];
+
+	if (!wt_secret_equal(token, v->token)) {
+		return respond_error(con, MHD_HTTP_UNAUTHORIZED,
+				     "wrong access token");
+	}
+	snprintf(cookie, sizeof(cookie),
+		 "wavetrim-view=%s; Path=/; HttpOnly; SameSite=Strict",
+		 v->token);
+	r = MHD_create_response_from_buffer(0, (void *)"",
+					    MHD_RESPMEM_PERSISTENT);
+	if (!r) {
+		return MHD_NO;
+	}
+	MHD_add_response_header(r, "Set-Cookie", cookie);
+	MHD_add_response_header(r, "Location", "/");
+	MHD_add_response_header(r, "Cache-Control", "no-store");
+	ret = MHD_queue_response(con, MHD_HTTP_SEE_OTHER, r);
+	MHD_destroy_response(r);
+	return ret;
+}
+
 static enum MHD_Result handler(void *cls, struct MHD_Connection *con,
 			       const char *url, const char *method,
 			       const char *version, const char *upload,
@@ -602,6 +685,20 @@ static enum MHD_Result handler(void *cls, struct MHD_Connection *con,
 	bool get = strcmp(method, "GET") == 0 || strcmp(method, "HEAD") == 0;
 
 	(void)version;
+	if (v->token[0] && get && strcmp(url, "/") == 0) {
+		const char *t = MHD_lookup_connection_value(
+			con, MHD_GET_ARGUMENT_KIND, "token");
+
+		if (t) {
+			return serve_login(v, con, t);
+		}
+	}
+	if (!token_ok(v, con)) {
+		return respond_error(con, MHD_HTTP_UNAUTHORIZED,
+				     "access token needed: open "
+				     "/?token=TOKEN or send Authorization: "
+				     "Bearer TOKEN");
+	}
 	if (strcmp(method, "POST") == 0 && strcmp(url, "/api/control") == 0) {
 		struct post *p = *con_cls;
 

@@ -1,8 +1,10 @@
 /*
  * wavetrim-view - a live view of the loop in the browser.
  *
- *   wavetrim-view -c FILE [--listen 127.0.0.1:8080] [--allow-remote]
- *                 [--rate HZ] [--www DIR] [--no-truth]
+ *   wavetrim-view -c FILE [--listen 127.0.0.1:8080]
+ *                 [--allow-remote --token-file FILE] [--rate HZ]
+ *                 [--www DIR] [--no-truth]
+ *                 [--server-key FILE --client-key PREFIX]
  *
  * Subscribes to wavetrimd's telemetry (and to the simulator's truth) like
  * any other subscriber, keeps the newest of everything, and rate_hz times a
@@ -28,6 +30,7 @@
 #include "wt_image.h"
 #include "wt_json.h"
 #include "wt_request.h"
+#include "wt_secure.h"
 
 /* Receive high-water mark of our subscriptions: a few periods at most. */
 #define SUB_HWM 16
@@ -82,12 +85,19 @@ static const char usage_text[] =
 	"  -l, --listen ADDR    HOST:PORT to serve on, a numeric address\n"
 	"                       (default 127.0.0.1:8080; IPv6 [::1]:8080)\n"
 	"      --allow-remote   accept a listen address that is not\n"
-	"                       loopback.  The view has no access control\n"
-	"                       of its own: whoever reaches the port can\n"
-	"                       open, close and hold the loop and change\n"
-	"                       gain and leak.  Access control is the\n"
-	"                       reliability issue's job (until it is done,\n"
-	"                       use a reverse proxy or an SSH tunnel)\n"
+	"                       loopback; needs --token-file.  Whoever\n"
+	"                       has the token can open, close and hold the\n"
+	"                       loop and change gain and leak (unless the\n"
+	"                       daemon takes our key as read-only).  Plain\n"
+	"                       HTTP: on an untrusted network use an SSH\n"
+	"                       tunnel or a TLS proxy instead\n"
+	"      --token-file FILE  the access token (one line, at least 16\n"
+	"                       characters, file mode 0600); a browser\n"
+	"                       opens http://HOST:PORT/?token=TOKEN once\n"
+	"                       (a cookie keeps it), scripts send the\n"
+	"                       header Authorization: Bearer TOKEN\n"
+	"      --server-key FILE  wavetrimd's CURVE public key (tcp)\n"
+	"      --client-key PREFIX  our CURVE key pair (PREFIX.key)\n"
 	"  -r, --rate HZ        ticks per second sent to the page\n"
 	"                       (default 10, 1 to 30)\n"
 	"      --www DIR        serve index.html, view.css and view.js\n"
@@ -542,12 +552,20 @@ struct feed {
 	uint64_t ticks;
 };
 
-static void *sub_socket(void *ctx, const char *ep, const char *const *topics)
+static void *sub_socket(void *ctx, const char *ep, const char *const *topics,
+			const struct view *keys)
 {
 	void *s = zmq_socket(ctx, ZMQ_SUB);
 	int hwm = SUB_HWM, linger = 0;
+	wt_error err;
 
 	if (!s) {
+		return NULL;
+	}
+	if (keys && wt_curve_client_files(s, ep, keys->server_key_file,
+					  keys->client_key_prefix, &err) < 0) {
+		fprintf(stderr, "wavetrim-view: %s\n", err.msg);
+		zmq_close(s);
 		return NULL;
 	}
 	zmq_setsockopt(s, ZMQ_RCVHWM, &hwm, sizeof(hwm));
@@ -728,7 +746,10 @@ static void poll_status_request(struct feed *f, bool readable)
 			return;
 		}
 		zmq_setsockopt(f->req, ZMQ_LINGER, &linger, sizeof(linger));
-		if (zmq_connect(f->req, v->control_ep) != 0 ||
+		if (wt_curve_client_files(f->req, v->control_ep,
+					  v->server_key_file,
+					  v->client_key_prefix, NULL) < 0 ||
+		    zmq_connect(f->req, v->control_ep) != 0 ||
 		    zmq_send(f->req, "status", 6, ZMQ_DONTWAIT) < 0) {
 			close_req(f);
 		}
@@ -815,13 +836,14 @@ static int run(struct view *v, bool no_truth)
 	period = (uint64_t)(1e9 / v->rate_hz);
 	next = start + period;
 	zmq_msg_init(&f.msg);
-	f.sub = sub_socket(v->zctx, v->telemetry_ep, topics);
+	f.sub = sub_socket(v->zctx, v->telemetry_ep, topics, v);
 	if (!f.sub) {
 		rc = -EINVAL;
 		goto out;
 	}
 	if (!no_truth && v->truth_ep[0]) {
-		f.truth = sub_socket(v->zctx, v->truth_ep, truth_topics);
+		/* the simulator's stream: no daemon keys */
+		f.truth = sub_socket(v->zctx, v->truth_ep, truth_topics, NULL);
 	}
 	f.want_status = true;
 	while (!stop_flag) {
@@ -898,6 +920,9 @@ int main(int argc, char **argv)
 		{"rate", required_argument, NULL, 'r'},
 		{"www", required_argument, NULL, 'W'},
 		{"no-truth", no_argument, NULL, 'T'},
+		{"token-file", required_argument, NULL, 'k'},
+		{"server-key", required_argument, NULL, 'S'},
+		{"client-key", required_argument, NULL, 'K'},
 		{"help", no_argument, NULL, 'h'},
 		{NULL, 0, NULL, 0},
 	};
@@ -908,6 +933,7 @@ int main(int argc, char **argv)
 	wt_config *cfg = NULL;
 	wt_error err = {0};
 	bool loopback = false, no_truth = false;
+	const char *token_file = NULL;
 	int c, rc = 2;
 
 	while ((c = getopt_long(argc, argv, "c:l:r:h", opts, NULL)) != -1) {
@@ -935,6 +961,15 @@ int main(int argc, char **argv)
 		case 'T':
 			no_truth = true;
 			break;
+		case 'k':
+			token_file = optarg;
+			break;
+		case 'S':
+			v.server_key_file = optarg;
+			break;
+		case 'K':
+			v.client_key_prefix = optarg;
+			break;
 		case 'h':
 			usage(stdout);
 			return 0;
@@ -955,12 +990,24 @@ int main(int argc, char **argv)
 			listen);
 		return 2;
 	}
-	if (!loopback && !v.allow_remote) {
+	if (!loopback && (!v.allow_remote || !token_file)) {
 		fprintf(stderr,
-			"wavetrim-view: %s is not a loopback address; the view "
-			"has no access control, so say --allow-remote if you "
-			"really mean it\n",
+			"wavetrim-view: %s is not a loopback address: serving "
+			"other hosts needs --allow-remote and --token-file "
+			"FILE (an access token every request must show)\n",
 			v.listen_host);
+		return 2;
+	}
+	if (token_file &&
+	    wt_secret_read(token_file, v.token, sizeof(v.token), &err) < 0) {
+		fprintf(stderr, "wavetrim-view: --token-file %s\n", err.msg);
+		return 2;
+	}
+	/* Key files are read now (an inproc endpoint uses no CURVE, so no
+	 * socket is needed), not at the first connection. */
+	if (wt_curve_client_files(NULL, "inproc://check", v.server_key_file,
+				  v.client_key_prefix, &err) < 0) {
+		fprintf(stderr, "wavetrim-view: %s\n", err.msg);
 		return 2;
 	}
 	/* One BLAS thread: the fits are small, and OpenBLAS threads spin
