@@ -241,7 +241,7 @@ static void *bind_socket(void *zctx, int type, const char *option,
 static void *connect_socket(void *zctx, int type, const char *option,
 			    const char *endpoint)
 {
-	int zero = 0, hwm = 4;
+	int zero = 0, hwm = WTD_LINK_HWM;
 	void *s = zmq_socket(zctx, type);
 
 	if (!s) {
@@ -513,9 +513,10 @@ int main(int argc, char **argv)
 
 	wtd_telemetry_destroy(&d);
 	wtd_control_destroy(&d);
-	wtd_loop_destroy(&d);
 	wt_ring_destroy(d.ring);
 	zmq_ctx_term(d.zctx);
+	/* After the context: the last commands are sent from its buffers. */
+	wtd_loop_destroy(&d);
 	for (int k = 0; k < d.evq_count; k++) {
 		free(d.evq[(d.evq_head + k) % WTD_EVQ]);
 	}
