@@ -18,6 +18,13 @@
  *
  * Nothing here allocates after wtd_loop_create(), formats text or takes a
  * lock; changes arrive through the mailbox and are applied between frames.
+ * Frames are received into one buffer sized for the largest valid frame
+ * (a longer message is truncated by libzmq and refused here as a length
+ * error) and commands are sent without a copy from a ring of
+ * WTD_SEND_BUFFERS preallocated buffers (zmq_msg_init_data without a free
+ * function: libzmq allocates nothing for it in this thread).
+ * tests/test_e2e_alloc.c counts this thread's heap calls through
+ * wtd_alloc_probe(), a weak symbol that only that test defines.
  */
 #include <errno.h>
 #include <math.h>
@@ -56,8 +63,11 @@ struct wtd_loop {
 	float *delta;	 /* n_act: integrator output (offset from flat) */
 	float *cmd;	 /* n_act: command being built */
 	float *last_cmd; /* n_act: command sent last */
-	uint8_t *sendbuf;
+	uint8_t *sendbuf; /* WTD_SEND_BUFFERS x send_len */
 	size_t send_len;
+	unsigned send_next; /* buffer of the next command */
+	uint8_t *recvbuf;   /* recv_len: one frame */
+	size_t recv_len;
 
 	/* installed, control-owned */
 	const float *matrix, *ref, *flat;
@@ -162,10 +172,16 @@ int wtd_loop_create(struct wtd *d, wt_error *err)
 	l->cmd = zalloc(na, sizeof(float));
 	l->last_cmd = zalloc(na, sizeof(float));
 	l->send_len = WT_PROTO_HEADER_BYTES + 4 * na;
-	l->sendbuf = zalloc(l->send_len, 1);
+	l->sendbuf = zalloc(WTD_SEND_BUFFERS * l->send_len, 1);
+	l->recv_len = WT_PROTO_HEADER_BYTES +
+		      (npix * sizeof(uint16_t) > ns * sizeof(float)
+			       ? npix * sizeof(uint16_t)
+			       : ns * sizeof(float));
+	l->recvbuf = zalloc(l->recv_len, 1);
 	if (!l->pix || !l->slopes || !l->residual || !l->offset || !l->flux ||
 	    !l->valid || !l->lo || !l->hi || !l->lo_rel || !l->hi_rel ||
-	    !l->delta || !l->cmd || !l->last_cmd || !l->sendbuf) {
+	    !l->delta || !l->cmd || !l->last_cmd || !l->sendbuf ||
+	    !l->recvbuf) {
 		return wt_error_set(err, -ENOMEM, "out of memory for the loop");
 	}
 	wt_control_set_gain(l->ctl,
@@ -230,6 +246,7 @@ void wtd_loop_destroy(struct wtd *d)
 	free(l->cmd);
 	free(l->last_cmd);
 	free(l->sendbuf);
+	free(l->recvbuf);
 	free(l);
 	d->loop = NULL;
 }
@@ -293,6 +310,8 @@ static int send_command(struct wtd_loop *l, uint64_t seq, int *clamped)
 		.height = 1,
 		.payload_bytes = (uint32_t)(4 * d->n_act),
 	};
+	uint8_t *buf;
+	zmq_msg_t msg;
 	int j, n = 0;
 
 	for (j = 0; j < d->n_act; j++) {
@@ -312,16 +331,20 @@ static int send_command(struct wtd_loop *l, uint64_t seq, int *clamped)
 		l->cmd[j] = v;
 	}
 	*clamped = n;
-	memcpy(l->sendbuf + WT_PROTO_HEADER_BYTES, l->cmd,
+	buf = l->sendbuf + (size_t)l->send_next * l->send_len;
+	l->send_next = (l->send_next + 1) % WTD_SEND_BUFFERS;
+	memcpy(buf + WT_PROTO_HEADER_BYTES, l->cmd,
 	       sizeof(float) * (size_t)d->n_act);
 	memcpy(l->last_cmd, l->cmd, sizeof(float) * (size_t)d->n_act);
 	h.timestamp_ns = wt_clock_ns();
-	if (wt_proto_encode(&h, l->sendbuf + WT_PROTO_HEADER_BYTES, l->sendbuf,
+	if (wt_proto_encode(&h, buf + WT_PROTO_HEADER_BYTES, buf,
 			    l->send_len) < 0) {
 		return -1;
 	}
-	if (zmq_send(d->s_commands, l->sendbuf, l->send_len, ZMQ_DONTWAIT) <
-	    0) {
+	/* No free function: a constant message, nothing allocated. */
+	zmq_msg_init_data(&msg, buf, l->send_len, NULL, NULL);
+	if (zmq_msg_send(&msg, d->s_commands, ZMQ_DONTWAIT) < 0) {
+		zmq_msg_close(&msg);
 		bump(&d->c.send_failed, 1);
 		return -1;
 	}
@@ -858,15 +881,16 @@ static void process(struct wtd_loop *l, const void *data, size_t len,
 
 /* --- the thread ----------------------------------------------------------- */
 
+/* Defined only by tests/alloc_probe.c, which counts heap calls. */
+void wtd_alloc_probe(uint64_t answered, int state) __attribute__((weak));
+
 void *wtd_loop_main(void *arg)
 {
 	struct wtd *d = arg;
 	struct wtd_loop *l = d->loop;
 	zmq_pollitem_t item = {.socket = d->s_frames, .events = ZMQ_POLLIN};
-	zmq_msg_t msg;
 	int linger = 500, clamped;
 
-	zmq_msg_init(&msg);
 	event(l, WTD_EV_STATE, -1, WT_STATE_OPEN, WTD_WHY_START, 0);
 	while (!atomic_load_explicit(&d->stop, memory_order_acquire)) {
 		uint64_t now;
@@ -882,10 +906,18 @@ void *wtd_loop_main(void *arg)
 			continue; /* EINTR: check the stop flag */
 		}
 		if (rc > 0 && (item.revents & ZMQ_POLLIN)) {
-			if (zmq_msg_recv(&msg, d->s_frames, ZMQ_DONTWAIT) >=
-			    0) {
-				process(l, zmq_msg_data(&msg),
-					zmq_msg_size(&msg), now);
+			rc = zmq_recv(d->s_frames, l->recvbuf, l->recv_len,
+				      ZMQ_DONTWAIT);
+			if (rc >= 0 && (size_t)rc > l->recv_len) {
+				/* longer than any valid frame: cut short */
+				bump(&d->c.received, 1);
+				count_refusal(l, -WT_EPROTO_LENGTH);
+				bad_frame(l);
+			} else if (rc >= 0) {
+				process(l, l->recvbuf, (size_t)rc, now);
+			}
+			if (rc >= 0 && wtd_alloc_probe) {
+				wtd_alloc_probe(l->answered, l->state);
 			}
 		}
 		check_silence(l, wt_clock_ns());
@@ -897,7 +929,6 @@ void *wtd_loop_main(void *arg)
 		send_command(l, l->last_id, &clamped);
 	}
 	event(l, WTD_EV_STOPPING, 0, 0, 0, 0);
-	zmq_msg_close(&msg);
 	/* Give the flat command time to leave before the socket goes. */
 	zmq_setsockopt(d->s_commands, ZMQ_LINGER, &linger, sizeof(linger));
 	zmq_close(d->s_commands);

@@ -227,7 +227,7 @@ static void *bind_socket(struct wtd *d, int type, const char *option,
 static void *connect_socket(struct wtd *d, int type, const char *option,
 			    const char *endpoint, const char *driver_public)
 {
-	int zero = 0, hwm = 4;
+	int zero = 0, hwm = WTD_LINK_HWM;
 	void *s = zmq_socket(d->zctx, type);
 	wt_error err;
 
@@ -579,10 +579,11 @@ int main(int argc, char **argv)
 
 	wtd_telemetry_destroy(&d);
 	wtd_control_destroy(&d);
-	wtd_loop_destroy(&d);
 	wt_ring_destroy(d.ring);
 	wt_zap_stop(d.zap);
 	zmq_ctx_term(d.zctx);
+	/* After the context: the last commands are sent from its buffers. */
+	wtd_loop_destroy(&d);
 	wt_keylist_destroy(d.clients);
 	wt_keylist_destroy(d.writers);
 	memset(&d.keys, 0, sizeof(d.keys));

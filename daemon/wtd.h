@@ -47,6 +47,16 @@
  * the stop flag and driver silence when no frame comes. */
 #define WTD_POLL_MS 10
 
+/* Queue length of the frames and commands links (ZMQ_RCVHWM, ZMQ_SNDHWM). */
+#define WTD_LINK_HWM 4
+
+/*
+ * Command buffers the loop sends from in turn, without copying.  libzmq
+ * holds at most WTD_LINK_HWM queued commands plus the one its I/O thread is
+ * writing, so a buffer is free again long before its turn comes back.
+ */
+#define WTD_SEND_BUFFERS (2 * WTD_LINK_HWM)
+
 /** Telemetry ring capacity in records (a power of two). */
 #define WTD_RING_RECORDS 1024
 

@@ -56,6 +56,7 @@
 
 #include "wt_error.h"
 #include "wt_geometry.h"
+#include "wt_mvm.h"
 
 /** Largest pixels_per_lenslet accepted. */
 #define WT_CENTROID_MAX_PIXELS 1024
@@ -97,6 +98,16 @@ void wt_centroid_destroy(wt_centroider *c);
  */
 int wt_centroid_set_levels(wt_centroider *c, float background, float threshold,
 			   float min_flux);
+
+/**
+ * Choose the kernel variant (the ISA names of wt_mvm.h: 16-byte vectors,
+ * or 32-byte AVX2 vectors on x86).  wt_centroid_create() picks the best
+ * one the CPU has; this is for tests and benchmarks.  The variants differ
+ * only in the order their float sums are added.  Returns 0, or -ENOTSUP
+ * for a variant this CPU or build lacks (or a NULL c).  Not at the same
+ * time as wt_centroid_frame() on the same centroider.
+ */
+int wt_centroid_use_isa(wt_centroider *c, enum wt_mvm_isa isa);
 
 /**
  * Centroid one frame.  frame is (n*p) x (n*p) uint16, row-major.  slopes
