@@ -210,6 +210,28 @@ static int count_by_ratio(const double *sv, int n, double ratio)
 }
 
 /*
+ * The gain of each of the `kept` modes from control.mode_gains (new array):
+ * entry i for mode i, the last entry repeated for the modes past the list,
+ * all 1 when the list is empty.  NULL when out of memory.
+ */
+static double *mode_gains(const wt_config *cfg, int kept)
+{
+	double *g = malloc(sizeof(double) * (size_t)(kept > 0 ? kept : 1));
+	double list[WT_CONFIG_LIST_MAX];
+	int n = wt_config_dlist(cfg, WT_OPT_CONTROL_MODE_GAINS, list,
+				WT_CONFIG_LIST_MAX);
+	int i;
+
+	if (!g) {
+		return NULL;
+	}
+	for (i = 0; i < kept; i++) {
+		g[i] = n > 0 ? list[i < n ? i : n - 1] : 1.0;
+	}
+	return g;
+}
+
+/*
  * Control matrix from the interaction matrix with the modes of cfg; install
  * it.  0, or a negative code with the reason in *err.
  */
@@ -221,6 +243,7 @@ static int build_matrix(struct wtd_ctl *ctl, const wt_config *cfg,
 	double ratio = wt_config_double(cfg, WT_OPT_CONTROL_MIN_SV_RATIO);
 	struct wtd_mb_msg m = {.type = WTD_MB_INSTALL};
 	float *R;
+	double *gains;
 	int kept, rc;
 	double cond;
 
@@ -247,10 +270,14 @@ static int build_matrix(struct wtd_ctl *ctl, const wt_config *cfg,
 				    ratio);
 	}
 	R = malloc(sizeof(float) * (size_t)d->n_act * (size_t)d->n_slopes);
-	if (!R) {
+	gains = mode_gains(cfg, kept);
+	if (!R || !gains) {
+		free(R);
+		free(gains);
 		return wt_error_set(err, -ENOMEM, "out of memory");
 	}
-	rc = wt_recon_pinv_float(ctl->svd, kept, NULL, R);
+	rc = wt_recon_pinv_float(ctl->svd, kept, gains, R);
+	free(gains);
 	if (rc < 0) {
 		free(R);
 		return wt_error_set(err, rc, "control matrix: %s",
@@ -698,6 +725,7 @@ static int apply_option(struct wtd_ctl *ctl, const wt_config *cfg,
 		break;
 	case WT_OPT_CONTROL_MODES:
 	case WT_OPT_CONTROL_MIN_SV_RATIO:
+	case WT_OPT_CONTROL_MODE_GAINS:
 		if (!ctl->have_D) {
 			return 0; /* used at the next calibration */
 		}
