@@ -34,12 +34,10 @@ static sim_world *world(const char *obscuration)
 
 	assert_int_equal(wt_config_create(&cfg, &err), 0);
 	assert_int_equal(wt_config_set(cfg, "sensor.lenslets", "12", &err), 0);
-	assert_int_equal(wt_config_set(cfg, "sensor.obscuration", obscuration,
-				       &err),
-			 0);
-	assert_int_equal(wt_config_set(cfg, "camera.spot_model", "geometric",
-				       &err),
-			 0);
+	assert_int_equal(
+		wt_config_set(cfg, "sensor.obscuration", obscuration, &err), 0);
+	assert_int_equal(
+		wt_config_set(cfg, "camera.spot_model", "geometric", &err), 0);
 	assert_int_equal(sim_world_create(cfg, &w, &err), 0);
 	wt_config_destroy(cfg);
 	return w;
@@ -77,10 +75,10 @@ static void check_fit(const char *obscuration)
 	sim_world_zernikes(w, wf, nm);
 	for (i = 0; i < SIM_WORLD_ZERNIKES; i++) {
 		int j = SIM_WORLD_ZERNIKE_FIRST + i;
-		double want = j == 4 ? 1e3 * a4
-			    : j == 7 ? 1e3 * a7
-			    : j == 11 ? 1e3 * a11
-				      : 0;
+		double want = j == 4	? 1e3 * a4
+			      : j == 7	? 1e3 * a7
+			      : j == 11 ? 1e3 * a11
+					: 0;
 
 		/* A least-squares fit of a combination of the fitted modes
 		 * returns it exactly (up to rounding). */
@@ -114,9 +112,9 @@ static void truth_carries_the_sample_coefficients(void **state)
 	(void)state;
 	assert_int_equal(wt_config_create(&cfg, &err), 0);
 	assert_int_equal(wt_config_set(cfg, "sensor.lenslets", "12", &err), 0);
-	assert_int_equal(wt_config_set(cfg, "sample.zernike", "5:0.2, 11:-0.1",
-				       &err),
-			 0);
+	assert_int_equal(
+		wt_config_set(cfg, "sample.zernike", "5:0.2, 11:-0.1", &err),
+		0);
 	assert_int_equal(sim_world_create(cfg, &w, &err), 0);
 	sim_world_truth_now(w, &t);
 	assert_double_equal(t.zernike_nm[5 - SIM_WORLD_ZERNIKE_FIRST], 200,
