@@ -24,7 +24,9 @@ struct sim_world {
 	double *phase;			       /* n_inside */
 	double *px, *py;		       /* n_inside coordinates */
 	double plane_inv[3][3]; /* inverse normal matrix of 1, x, y */
-	double *zfit; /* ZFIT_MODES x n_inside: pseudo-inverse of the modes */
+	double *zfit;  /* ZFIT_MODES x n_inside: pseudo-inverse of the modes */
+	double *w_ncp; /* n * n: sensor arm's own aberration, or NULL */
+	double *w_sensor; /* n * n: residual + w_ncp, what the camera sees */
 };
 
 static void mirror_params(const wt_config *cfg, sim_mirror_params *p)
@@ -218,6 +220,42 @@ static int sim_world_buffers(sim_world *w)
 	return invert3(m, w->plane_inv);
 }
 
+/* sim.ncp_zernike as a map over the whole grid (none: w->w_ncp NULL). */
+static int ncp_create(sim_world *w, const wt_config *cfg, wt_error *err)
+{
+	const sim_pupil *pp = w->pupil;
+	int noll[WT_CONFIG_LIST_MAX];
+	double coef[WT_CONFIG_LIST_MAX];
+	int n = wt_config_zlist(cfg, WT_OPT_SIM_NCP_ZERNIKE, noll, coef,
+				WT_CONFIG_LIST_MAX);
+	size_t nn = (size_t)pp->n * pp->n;
+	int a, b, k;
+
+	if (n < 0) {
+		return wt_error_set(err, n, "sim.ncp_zernike: not readable");
+	}
+	if (n == 0) {
+		return 0;
+	}
+	w->w_ncp = calloc(nn, sizeof(double));
+	w->w_sensor = calloc(nn, sizeof(double));
+	if (!w->w_ncp || !w->w_sensor) {
+		return wt_error_set(err, -ENOMEM, "sim: out of memory");
+	}
+	for (b = 0; b < pp->n; b++) {
+		for (a = 0; a < pp->n; a++) {
+			double x = sim_pupil_coord(pp, a);
+			double y = sim_pupil_coord(pp, b);
+
+			for (k = 0; k < n; k++) {
+				w->w_ncp[b * pp->n + a] +=
+					coef[k] * wt_zernike_xy(noll[k], x, y);
+			}
+		}
+	}
+	return 0;
+}
+
 int sim_world_create(const wt_config *cfg, sim_world **out, wt_error *err)
 {
 	sim_mirror_params mp;
@@ -267,6 +305,10 @@ int sim_world_create(const wt_config *cfg, sim_world **out, wt_error *err)
 		wt_error_set(err, rc, "sim: out of memory or empty pupil");
 		goto fail;
 	}
+	rc = ncp_create(w, cfg, err);
+	if (rc < 0) {
+		goto fail;
+	}
 	*out = w;
 	return 0;
 fail:
@@ -290,6 +332,8 @@ void sim_world_destroy(sim_world *w)
 	free(w->px);
 	free(w->py);
 	free(w->zfit);
+	free(w->w_ncp);
+	free(w->w_sensor);
 	free(w);
 }
 
@@ -401,7 +445,15 @@ int sim_world_expose(sim_world *w, uint16_t *frame, sim_world_truth *truth)
 	sim_world_figures(w, w->w_resid, &t.rms_nm, &t.rms_tt_removed_nm,
 			  &t.strehl);
 	sim_world_zernikes(w, w->w_resid, t.zernike_nm);
-	rc = sim_camera_expose(w->camera, w->w_resid, frame);
+	if (w->w_ncp) {
+		size_t nn = (size_t)w->pupil->n * w->pupil->n, s;
+
+		for (s = 0; s < nn; s++) {
+			w->w_sensor[s] = w->w_resid[s] + w->w_ncp[s];
+		}
+	}
+	rc = sim_camera_expose(w->camera, w->w_ncp ? w->w_sensor : w->w_resid,
+			       frame);
 	if (rc < 0) {
 		return rc;
 	}

@@ -19,7 +19,9 @@
  *                        (Noll 1976 normalisation, lib/wt_zernike.h) of
  *                        the residual over the pupil's samples, in nm; the
  *                        truth carries Noll 2 .. 15;
- *   3. the camera's frame of the residual (sim_camera.h);
+ *   3. the camera's frame of the residual plus the sensor arm's own
+ *      aberration sim.ncp_zernike (non-common path: the sensor sees it,
+ *      the truth, which is the science path, does not) (sim_camera.h);
  *   4. simulated time advances by 1 / sim.frame_rate_hz (sample drift and
  *      turbulence move), ready for the next exposure.
  */

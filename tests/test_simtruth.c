@@ -166,11 +166,67 @@ static void truth_v2_round_trips_and_v1_still_reads(void **state)
 	assert_int_equal(sim_truth_decode(msg, 10, &u), -EINVAL);
 }
 
+/* A world of 12 lenslets, geometric noiseless spots, no sample, and the
+ * given sensor-arm aberration. */
+static sim_world *ncp_world(const char *ncp)
+{
+	static const char *const kv[][2] = {
+		{"sensor.lenslets", "12"},
+		{"camera.spot_model", "geometric"},
+		{"camera.photon_noise", "0"},
+		{"camera.read_noise_e", "0"},
+	};
+	wt_config *cfg = NULL;
+	sim_world *w = NULL;
+	wt_error err;
+
+	assert_int_equal(wt_config_create(&cfg, &err), 0);
+	for (size_t k = 0; k < sizeof(kv) / sizeof(kv[0]); k++) {
+		assert_int_equal(wt_config_set(cfg, kv[k][0], kv[k][1], &err),
+				 0);
+	}
+	assert_int_equal(wt_config_set(cfg, "sim.ncp_zernike", ncp, &err), 0);
+	assert_int_equal(sim_world_create(cfg, &w, &err), 0);
+	wt_config_destroy(cfg);
+	return w;
+}
+
+/* The sensor arm's aberration reaches the camera's frame but not the
+ * truth (the science path). */
+static void ncp_is_seen_by_the_camera_not_the_truth(void **state)
+{
+	sim_world *a = ncp_world(""), *b = ncp_world("4:0.1");
+	size_t npix = (size_t)sim_world_width(a) * (size_t)sim_world_width(a);
+	uint16_t *fa = calloc(npix, sizeof(uint16_t));
+	uint16_t *fb = calloc(npix, sizeof(uint16_t));
+	sim_world_truth ta, tb;
+	size_t differ = 0;
+
+	(void)state;
+	assert_non_null(fa);
+	assert_non_null(fb);
+	assert_int_equal(sim_world_expose(a, fa, &ta), 0);
+	assert_int_equal(sim_world_expose(b, fb, &tb), 0);
+	for (size_t k = 0; k < npix; k++) {
+		differ += fa[k] != fb[k];
+	}
+	assert_true(differ > 0);
+	assert_double_equal(ta.rms_nm, 0, 1e-9);
+	assert_double_equal(tb.rms_nm, 0, 1e-9);
+	assert_double_equal(tb.zernike_nm[4 - SIM_WORLD_ZERNIKE_FIRST], 0,
+			    1e-9);
+	free(fa);
+	free(fb);
+	sim_world_destroy(a);
+	sim_world_destroy(b);
+}
+
 static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(zernike_fit_returns_the_amounts_clear_pupil),
 	cmocka_unit_test(zernike_fit_returns_the_amounts_annular_pupil),
 	cmocka_unit_test(truth_carries_the_sample_coefficients),
 	cmocka_unit_test(truth_v2_round_trips_and_v1_still_reads),
+	cmocka_unit_test(ncp_is_seen_by_the_camera_not_the_truth),
 };
 
 WT_TEST_MAIN(tests)
