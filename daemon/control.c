@@ -25,6 +25,7 @@
 #include <zmq.h>
 
 #include "wt_clock.h"
+#include "wt_offset.h"
 #include "wt_recon.h"
 #include "wtd.h"
 
@@ -58,6 +59,12 @@ struct wtd_ctl {
 	char created[32];
 	char source[16];
 	char file[WT_REQUEST_LINE_MAX + 1];
+
+	/* Zernike offsets the closed loop holds, and their slopes */
+	int n_offsets;
+	int offset_noll[WTD_OFFSETS_MAX];
+	double offset_nm[WTD_OFFSETS_MAX];
+	float *offset; /* installed in the loop, or NULL */
 };
 
 /* Sections whose options wavetrimd reads (the others are the simulator's). */
@@ -95,6 +102,9 @@ static void publish_slow(struct wtd_ctl *ctl)
 	snprintf(d->slow.source, sizeof(d->slow.source), "%s", ctl->source);
 	snprintf(d->slow.file, sizeof(d->slow.file), "%s", ctl->file);
 	snprintf(d->slow.created, sizeof(d->slow.created), "%s", ctl->created);
+	d->slow.n_offsets = ctl->n_offsets;
+	memcpy(d->slow.offset_noll, ctl->offset_noll, sizeof(ctl->offset_noll));
+	memcpy(d->slow.offset_nm, ctl->offset_nm, sizeof(ctl->offset_nm));
 	pthread_mutex_unlock(&d->slow_mu);
 	atomic_store(&d->driver_timeout_ns,
 		     (unsigned long long)wt_config_int(
@@ -219,6 +229,51 @@ static int count_by_ratio(const double *sv, int n, double ratio)
 	return k;
 }
 
+/* The SVD of the interaction matrix, computed once per matrix. */
+static int ensure_svd(struct wtd_ctl *ctl, wt_error *err)
+{
+	struct wtd *d = ctl->d;
+	int rc;
+
+	if (!ctl->have_D) {
+		return wt_error_set(err, -ENOENT, "no interaction matrix");
+	}
+	if (ctl->svd) {
+		return 0;
+	}
+	rc = wt_svd_compute(ctl->D, d->n_slopes, d->n_act, &ctl->svd, err);
+	if (rc < 0) {
+		return rc;
+	}
+	ctl->n_sv = wt_svd_count(ctl->svd);
+	memcpy(ctl->sv, wt_svd_values(ctl->svd),
+	       sizeof(double) * (size_t)ctl->n_sv);
+	ctl->have_sv = true;
+	return 0;
+}
+
+/*
+ * The gain of each of the `kept` modes from control.mode_gains (new array):
+ * entry i for mode i, the last entry repeated for the modes past the list,
+ * all 1 when the list is empty.  NULL when out of memory.
+ */
+static double *mode_gains(const wt_config *cfg, int kept)
+{
+	double *g = malloc(sizeof(double) * (size_t)(kept > 0 ? kept : 1));
+	double list[WT_CONFIG_LIST_MAX];
+	int n = wt_config_dlist(cfg, WT_OPT_CONTROL_MODE_GAINS, list,
+				WT_CONFIG_LIST_MAX);
+	int i;
+
+	if (!g) {
+		return NULL;
+	}
+	for (i = 0; i < kept; i++) {
+		g[i] = n > 0 ? list[i < n ? i : n - 1] : 1.0;
+	}
+	return g;
+}
+
 /*
  * Control matrix from the interaction matrix with the modes of cfg; install
  * it.  0, or a negative code with the reason in *err.
@@ -231,22 +286,13 @@ static int build_matrix(struct wtd_ctl *ctl, const wt_config *cfg,
 	double ratio = wt_config_double(cfg, WT_OPT_CONTROL_MIN_SV_RATIO);
 	struct wtd_mb_msg m = {.type = WTD_MB_INSTALL};
 	float *R;
+	double *gains;
 	int kept, rc;
 	double cond;
 
-	if (!ctl->have_D) {
-		return wt_error_set(err, -ENOENT, "no interaction matrix");
-	}
-	if (!ctl->svd) {
-		rc = wt_svd_compute(ctl->D, d->n_slopes, d->n_act, &ctl->svd,
-				    err);
-		if (rc < 0) {
-			return rc;
-		}
-		ctl->n_sv = wt_svd_count(ctl->svd);
-		memcpy(ctl->sv, wt_svd_values(ctl->svd),
-		       sizeof(double) * (size_t)ctl->n_sv);
-		ctl->have_sv = true;
+	rc = ensure_svd(ctl, err);
+	if (rc < 0) {
+		return rc;
 	}
 	kept = wt_recon_modes(ctl->svd, modes_opt, ratio);
 	if (kept < 1) {
@@ -257,10 +303,14 @@ static int build_matrix(struct wtd_ctl *ctl, const wt_config *cfg,
 				    ratio);
 	}
 	R = malloc(sizeof(float) * (size_t)d->n_act * (size_t)d->n_slopes);
-	if (!R) {
+	gains = mode_gains(cfg, kept);
+	if (!R || !gains) {
+		free(R);
+		free(gains);
 		return wt_error_set(err, -ENOMEM, "out of memory");
 	}
-	rc = wt_recon_pinv_float(ctl->svd, kept, NULL, R);
+	rc = wt_recon_pinv_float(ctl->svd, kept, gains, R);
+	free(gains);
 	if (rc < 0) {
 		free(R);
 		return wt_error_set(err, rc, "control matrix: %s",
@@ -734,6 +784,7 @@ static int apply_option(struct wtd_ctl *ctl, const wt_config *cfg,
 		break;
 	case WT_OPT_CONTROL_MODES:
 	case WT_OPT_CONTROL_MIN_SV_RATIO:
+	case WT_OPT_CONTROL_MODE_GAINS:
 		if (!ctl->have_D) {
 			return 0; /* used at the next calibration */
 		}
@@ -1079,6 +1130,423 @@ static bool sender_may_write(const struct wtd *d, zmq_msg_t *msg)
 	return !user || wt_keylist_has(d->writers, user);
 }
 
+/* --- offsets and shapes --------------------------------------------------- */
+
+/* The sensor's optics for wt_offset. */
+static void sensor_optics(const struct wtd *d, wt_sensor_optics *so)
+{
+	so->pixels_per_lenslet = d->ppl;
+	so->pixel_um = wt_config_double(d->cfg, WT_OPT_SENSOR_PIXEL_PITCH_UM);
+	so->focal_mm = wt_config_double(d->cfg, WT_OPT_SENSOR_FOCAL_LENGTH_MM);
+}
+
+/* The slopes (pixels) of n Zernike terms, added into s (n_slopes, zeroed
+ * first).  0 or a negative code with the reason. */
+static int zernike_slopes(struct wtd_ctl *ctl, int n, const int *noll,
+			  const double *nm, double *s, wt_error *err)
+{
+	struct wtd *d = ctl->d;
+	wt_sensor_optics so;
+	int k, rc;
+
+	sensor_optics(d, &so);
+	memset(s, 0, sizeof(double) * (size_t)d->n_slopes);
+	for (k = 0; k < n; k++) {
+		rc = wt_offset_add_zernike(d->lenslets, &so, noll[k], nm[k], s,
+					   err);
+		if (rc < 0) {
+			return rc;
+		}
+	}
+	return 0;
+}
+
+static void body_offsets(struct wtd_ctl *ctl, wt_json *j, const void *arg)
+{
+	(void)arg;
+	wt_json_key(j, "offsets");
+	wtd_offsets_json(j, ctl->n_offsets, ctl->offset_noll, ctl->offset_nm);
+}
+
+/*
+ * Install the offsets noll[n], nm[n] (n = 0: none) in the loop and make
+ * them ctl's.  0 or a negative code with the reason.
+ */
+static int install_offsets(struct wtd_ctl *ctl, int n, const int *noll,
+			   const double *nm, wt_error *err)
+{
+	struct wtd *d = ctl->d;
+	struct wtd_mb_msg m = {.type = WTD_MB_OFFSET};
+	double *s = NULL;
+	float *f = NULL;
+	int k, rc;
+
+	if (n > 0) {
+		s = malloc(sizeof(double) * (size_t)d->n_slopes);
+		f = malloc(sizeof(float) * (size_t)d->n_slopes);
+		if (!s || !f) {
+			free(s);
+			free(f);
+			return wt_error_set(err, -ENOMEM, "out of memory");
+		}
+		rc = zernike_slopes(ctl, n, noll, nm, s, err);
+		for (k = 0; rc == 0 && k < d->n_slopes; k++) {
+			f[k] = (float)s[k];
+		}
+		free(s);
+		if (rc < 0) {
+			free(f);
+			return rc;
+		}
+	}
+	m.offset = f;
+	rc = post(ctl, &m);
+	if (rc < 0) {
+		if (rc != -ETIMEDOUT) {
+			free(f);
+		}
+		return wt_error_set(err, rc, "the loop did not answer");
+	}
+	free((void *)d->mb.old_offset);
+	ctl->offset = f;
+	if (noll != ctl->offset_noll) {
+		memcpy(ctl->offset_noll, noll, sizeof(int) * (size_t)n);
+		memcpy(ctl->offset_nm, nm, sizeof(double) * (size_t)n);
+	}
+	ctl->n_offsets = n;
+	return 0;
+}
+
+static void do_offset(struct wtd_ctl *ctl, const wt_request *req,
+		      struct outcome *o)
+{
+	int noll[WTD_OFFSETS_MAX];
+	double nm[WTD_OFFSETS_MAX];
+	int n = ctl->n_offsets, k;
+	wt_error err;
+	wt_json j;
+
+	if (req->offset_op != WT_OFFSET_SHOW) {
+		memcpy(noll, ctl->offset_noll, sizeof(noll));
+		memcpy(nm, ctl->offset_nm, sizeof(nm));
+		if (req->offset_op == WT_OFFSET_CLEAR) {
+			n = 0;
+		} else {
+			/* Offsets add: the same mode's amounts sum. */
+			for (k = 0; k < n && noll[k] != req->noll; k++) {
+			}
+			if (k == n && n == WTD_OFFSETS_MAX) {
+				fail(o,
+				     "at most %d modes may be offset at once "
+				     "(offset clear first)",
+				     WTD_OFFSETS_MAX);
+				return;
+			}
+			if (k == n) {
+				noll[n] = req->noll;
+				nm[n++] = 0;
+			}
+			nm[k] += req->amount_nm;
+			if (nm[k] == 0) {
+				noll[k] = noll[n - 1];
+				nm[k] = nm[n - 1];
+				n--;
+			}
+		}
+		if (install_offsets(ctl, n, noll, nm, &err) < 0) {
+			fail(o, "offset: %s", err.msg);
+			return;
+		}
+		publish_slow(ctl);
+		post_event(ctl, "offsets", body_offsets, NULL);
+		wt_log_info(ctl->d->log, "%d offset mode(s) held", n);
+	}
+	result_begin(ctl, &j);
+	wt_json_object_begin(&j);
+	body_offsets(ctl, &j, NULL);
+	wt_json_object_end(&j);
+	result_end(ctl, &j, o);
+}
+
+/*
+ * shape zernike J AMOUNT: command = flat + R p, p the mode's slopes and R
+ * the pseudo-inverse of the interaction matrix over the installed modes
+ * (without control.mode_gains, which are loop tuning), so that D (command
+ * - flat) = p to the extent the mirror can make it.
+ */
+static void do_shape(struct wtd_ctl *ctl, const wt_request *req,
+		     struct outcome *o)
+{
+	struct wtd *d = ctl->d;
+	struct wtd_mb_msg m = {.type = WTD_MB_SHAPE};
+	double lo = wt_config_double(d->cfg, WT_OPT_MIRROR_LIMIT_LOW);
+	double hi = wt_config_double(d->cfg, WT_OPT_MIRROR_LIMIT_HIGH);
+	int state = atomic_load(&d->c.state);
+	size_t ns = (size_t)d->n_slopes, na = (size_t)d->n_act;
+	double *p = NULL, *R = NULL, peak = 0;
+	float *cmd = NULL;
+	wt_error err;
+	wt_json j;
+	size_t a, k;
+	int rc;
+
+	if (state == WT_STATE_CLOSED) {
+		fail(o, "shape is for the open loop: open first (in closed "
+			"loop use offset)");
+		return;
+	}
+	if (state == WT_STATE_CALIBRATING || atomic_load(&d->c.calib_ready)) {
+		fail(o, "%s", busy_reason(ctl));
+		return;
+	}
+	if (state == WT_STATE_FAULT) {
+		fail(o, "the loop is in fault: open or close first");
+		return;
+	}
+	if (!ctl->R || ctl->modes < 1) {
+		fail(o, "no control matrix: calibrate or load a calibration "
+			"first");
+		return;
+	}
+	if (ensure_svd(ctl, &err) < 0) {
+		fail(o, "shape: %s", err.msg);
+		return;
+	}
+	p = malloc(sizeof(double) * ns);
+	R = malloc(sizeof(double) * ns * na);
+	cmd = malloc(sizeof(float) * na);
+	if (!p || !R || !cmd) {
+		fail(o, "out of memory");
+		goto out;
+	}
+	rc = zernike_slopes(ctl, 1, &req->noll, &req->amount_nm, p, &err);
+	if (rc == 0) {
+		rc = wt_recon_pinv(ctl->svd, ctl->modes, NULL, R);
+		if (rc < 0) {
+			wt_error_set(&err, rc, "%s", wt_strerror(rc));
+		}
+	}
+	if (rc < 0) {
+		fail(o, "shape: %s", err.msg);
+		goto out;
+	}
+	for (a = 0; a < na; a++) {
+		double v = 0;
+
+		for (k = 0; k < ns; k++) {
+			v += R[a * ns + k] * p[k];
+		}
+		if (fabs(v) > peak) {
+			peak = fabs(v);
+		}
+		v += ctl->flat[a];
+		if (!(v >= lo && v <= hi)) {
+			fail(o,
+			     "actuator %zu would be at %.4g, outside the "
+			     "limits [%g, %g]: ask for less",
+			     a, v, lo, hi);
+			goto out;
+		}
+		cmd[a] = (float)v;
+	}
+	m.command = cmd;
+	rc = post(ctl, &m);
+	if (rc < 0) {
+		if (rc == -ETIMEDOUT) {
+			cmd = NULL; /* the loop may still read it */
+		}
+		state_failure(ctl, o, rc, "shape");
+		goto out;
+	}
+	wt_log_info(d->log, "shape: Noll %d, %g nm, largest stroke %.3g",
+		    req->noll, req->amount_nm, peak);
+	result_begin(ctl, &j);
+	wt_json_object_begin(&j);
+	wt_json_key(&j, "state");
+	wt_json_string(&j, wt_state_name(WT_STATE_HELD));
+	wt_json_key(&j, "noll");
+	wt_json_int(&j, req->noll);
+	wt_json_key(&j, "nm");
+	wt_json_double(&j, req->amount_nm);
+	wt_json_key(&j, "largest_stroke");
+	wt_json_double_prec(&j, peak, 6);
+	wt_json_object_end(&j);
+	result_end(ctl, &j, o);
+out:
+	free(p);
+	free(R);
+	free(cmd);
+}
+
+/* --- reload --------------------------------------------------------------- */
+
+struct reload_report {
+	const char *file;
+	const int *changed;
+	int n_changed;
+	const char *error; /* NULL: applied */
+};
+
+static void body_reload(struct wtd_ctl *ctl, wt_json *j, const void *arg)
+{
+	const struct reload_report *r = arg;
+	char key[128];
+	int k;
+
+	(void)ctl;
+	wt_json_key(j, "ok");
+	wt_json_bool(j, r->error == NULL);
+	wt_json_key(j, "file");
+	wt_json_string(j, r->file);
+	wt_json_key(j, "changed");
+	wt_json_array_begin(j);
+	for (k = 0; k < r->n_changed; k++) {
+		const wt_option *opt = wt_option_get((wt_opt_id)r->changed[k]);
+
+		snprintf(key, sizeof(key), "%s.%s", opt->section, opt->key);
+		wt_json_string(j, key);
+	}
+	wt_json_array_end(j);
+	wt_json_key(j, "error");
+	wt_json_string(j, r->error);
+}
+
+/* Do two configurations hold the same value of opt? */
+static bool same_value(const wt_config *a, const wt_config *b,
+		       const wt_option *opt)
+{
+	char ta[WT_CONFIG_TEXT_MAX], tb[WT_CONFIG_TEXT_MAX];
+
+	if (wt_config_format(a, opt->id, ta, sizeof(ta)) < 0 ||
+	    wt_config_format(b, opt->id, tb, sizeof(tb)) < 0) {
+		return false;
+	}
+	return strcmp(ta, tb) == 0;
+}
+
+/*
+ * Re-read d->config_path over the defaults; refuse the whole of it when it
+ * does not read or changes an option that needs a restart; else apply each
+ * changed live option (each a `config` event), undoing those applied
+ * before one the loop refuses.  Options of the simulator's sections are
+ * not ours and are left alone.  Reports by a `reload` event either way.
+ */
+static void do_reload(struct wtd_ctl *ctl, struct outcome *o)
+{
+	struct wtd *d = ctl->d;
+	size_t n_opt = wt_option_count(), i;
+	wt_config *fresh = NULL;
+	int *changed = calloc(n_opt, sizeof(int));
+	char why[WT_ERROR_MAX] = "";
+	struct reload_report rep = {.file = d->config_path};
+	int n_changed = 0, k, done = 0;
+	size_t used = 0;
+	wt_error err;
+	wt_json j;
+	double lo, hi;
+
+	if (!changed || wt_config_create(&fresh, &err) < 0) {
+		fail(o, "out of memory");
+		goto out;
+	}
+	if (!d->config_path) {
+		fail(o, "the daemon was started without a configuration file");
+		goto out;
+	}
+	if (wt_config_load(fresh, d->config_path, &err) < 0) {
+		fail(o, "reload refused: %s", err.msg);
+		goto out;
+	}
+	for (i = 0; i < n_opt; i++) {
+		const wt_option *opt = wt_option_get((wt_opt_id)i);
+
+		if (!daemon_section(opt->section) ||
+		    same_value(fresh, d->cfg, opt)) {
+			continue;
+		}
+		if (!opt->live) {
+			int w = snprintf(why + used, sizeof(why) - used,
+					 "%s%s.%s needs a restart",
+					 used ? ", " : "", opt->section,
+					 opt->key);
+
+			if (w > 0 && (size_t)w < sizeof(why) - used) {
+				used += (size_t)w;
+			}
+			continue;
+		}
+		changed[n_changed++] = (int)i;
+	}
+	if (used) {
+		fail(o, "reload refused: %s", why);
+		goto out;
+	}
+	lo = wt_config_double(fresh, WT_OPT_MIRROR_LIMIT_LOW);
+	hi = wt_config_double(fresh, WT_OPT_MIRROR_LIMIT_HIGH);
+	if (!(lo < hi)) {
+		fail(o,
+		     "reload refused: %s: mirror.limit_low (%g) must be below "
+		     "mirror.limit_high (%g)",
+		     d->config_path, lo, hi);
+		goto out;
+	}
+	/* The running configuration with the file's live values. */
+	wt_config_copy(ctl->scratch, d->cfg);
+	for (k = 0; k < n_changed; k++) {
+		const wt_option *opt = wt_option_get((wt_opt_id)changed[k]);
+		char key[128], text[WT_CONFIG_TEXT_MAX];
+
+		snprintf(key, sizeof(key), "%s.%s", opt->section, opt->key);
+		if (wt_config_format(fresh, opt->id, text, sizeof(text)) < 0 ||
+		    wt_config_set(ctl->scratch, key, text, &err) < 0) {
+			fail(o, "reload refused: %s", key);
+			goto out;
+		}
+	}
+	for (done = 0; done < n_changed; done++) {
+		const wt_option *opt = wt_option_get((wt_opt_id)changed[done]);
+
+		if (apply_option(ctl, ctl->scratch, opt, &err) < 0) {
+			fail(o, "reload refused: %s.%s: %s", opt->section,
+			     opt->key, err.msg);
+			break;
+		}
+	}
+	if (done < n_changed) {
+		/* Undo, so that nothing changed. */
+		for (k = 0; k < done; k++) {
+			apply_option(ctl, d->cfg,
+				     wt_option_get((wt_opt_id)changed[k]),
+				     &err);
+		}
+		goto out;
+	}
+	wt_config_copy(d->cfg, ctl->scratch);
+	publish_slow(ctl);
+	for (k = 0; k < n_changed; k++) {
+		post_event(ctl, "config", body_config,
+			   wt_option_get((wt_opt_id)changed[k]));
+	}
+	rep.changed = changed;
+	rep.n_changed = n_changed;
+	wt_log_notice(d->log, "reloaded %s: %d option(s) changed",
+		      d->config_path, n_changed);
+	post_event(ctl, "reload", body_reload, &rep);
+	result_begin(ctl, &j);
+	wt_json_object_begin(&j);
+	body_reload(ctl, &j, &rep);
+	wt_json_object_end(&j);
+	result_end(ctl, &j, o);
+out:
+	if (!o->ok) {
+		rep.error = o->error;
+		wt_log_warning(d->log, "%s", o->error);
+		post_event(ctl, "reload", body_reload, &rep);
+	}
+	wt_config_destroy(fresh);
+	free(changed);
+}
+
 /* One request: the reply text into ctl->reply; returns its length. */
 static int handle(struct wtd_ctl *ctl, const char *line, size_t len,
 		  bool writer)
@@ -1154,6 +1622,15 @@ static int handle(struct wtd_ctl *ctl, const char *line, size_t len,
 	case WT_REQ_HELP:
 		do_help(ctl, &o);
 		break;
+	case WT_REQ_RELOAD:
+		do_reload(ctl, &o);
+		break;
+	case WT_REQ_OFFSET:
+		do_offset(ctl, req, &o);
+		break;
+	case WT_REQ_SHAPE:
+		do_shape(ctl, req, &o);
+		break;
 	default:
 		fail(&o, "not implemented");
 		break;
@@ -1182,6 +1659,13 @@ void *wtd_control_main(void *arg)
 		size_t more_len = sizeof(more);
 
 		pick_up_calibration(ctl);
+		if (atomic_exchange(&d->reload_requested, false)) {
+			struct outcome ro = {.ok = false};
+
+			wt_log_notice(d->log, "SIGHUP: reloading %s",
+				      d->config_path ? d->config_path : "?");
+			do_reload(ctl, &ro);
+		}
 		rc = zmq_poll(&item, 1, 20);
 		if (rc < 0) {
 			if (zmq_errno() == ETERM) {
@@ -1305,6 +1789,7 @@ void wtd_control_destroy(struct wtd *d)
 	free(ctl->R);
 	free(ctl->ref);
 	free(ctl->flat);
+	free(ctl->offset);
 	free(ctl);
 	d->ctl = NULL;
 }

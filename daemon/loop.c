@@ -57,7 +57,7 @@ struct wtd_loop {
 	float *residual;	/* n_slopes */
 	float *flux;		/* n_subaps */
 	uint8_t *valid;		/* n_subaps */
-	float *offset;		/* n_slopes: offset slopes (zero for now) */
+	const float *offset;	/* n_slopes, control-owned; NULL: none */
 	float *lo, *hi;		/* n_act: the mirror's limits */
 	float *lo_rel, *hi_rel; /* n_act: limits minus the flat */
 	float *delta;	 /* n_act: integrator output (offset from flat) */
@@ -161,7 +161,6 @@ int wtd_loop_create(struct wtd *d, wt_error *err)
 	l->pix = zalloc(npix, sizeof(uint16_t));
 	l->slopes = zalloc(ns, sizeof(float));
 	l->residual = zalloc(ns, sizeof(float));
-	l->offset = zalloc(ns, sizeof(float));
 	l->flux = zalloc((size_t)d->n_subaps, sizeof(float));
 	l->valid = zalloc((size_t)d->n_subaps, 1);
 	l->lo = zalloc(na, sizeof(float));
@@ -178,10 +177,9 @@ int wtd_loop_create(struct wtd *d, wt_error *err)
 			       ? npix * sizeof(uint16_t)
 			       : ns * sizeof(float));
 	l->recvbuf = zalloc(l->recv_len, 1);
-	if (!l->pix || !l->slopes || !l->residual || !l->offset || !l->flux ||
-	    !l->valid || !l->lo || !l->hi || !l->lo_rel || !l->hi_rel ||
-	    !l->delta || !l->cmd || !l->last_cmd || !l->sendbuf ||
-	    !l->recvbuf) {
+	if (!l->pix || !l->slopes || !l->residual || !l->flux || !l->valid ||
+	    !l->lo || !l->hi || !l->lo_rel || !l->hi_rel || !l->delta ||
+	    !l->cmd || !l->last_cmd || !l->sendbuf || !l->recvbuf) {
 		return wt_error_set(err, -ENOMEM, "out of memory for the loop");
 	}
 	wt_control_set_gain(l->ctl,
@@ -235,7 +233,6 @@ void wtd_loop_destroy(struct wtd *d)
 	free(l->pix);
 	free(l->slopes);
 	free(l->residual);
-	free(l->offset);
 	free(l->flux);
 	free(l->valid);
 	free(l->lo);
@@ -568,6 +565,24 @@ static int apply_install(struct wtd_loop *l, const struct wtd_mb_msg *m)
 	return 0;
 }
 
+/* A shape (checked within the limits by control): held from now on. */
+static int apply_shape(struct wtd_loop *l, const float *command)
+{
+	if (!command) {
+		return -EINVAL;
+	}
+	if (l->state == WT_STATE_CALIBRATING) {
+		return -EBUSY;
+	}
+	if (l->state != WT_STATE_OPEN && l->state != WT_STATE_HELD) {
+		return -EPERM;
+	}
+	cmd_from(l, command);
+	memcpy(l->last_cmd, command, sizeof(float) * (size_t)l->d->n_act);
+	set_state(l, WT_STATE_HELD, WTD_WHY_REQUEST);
+	return 0;
+}
+
 static int apply(struct wtd_loop *l, const struct wtd_mb_msg *m)
 {
 	switch (m->type) {
@@ -609,6 +624,12 @@ static int apply(struct wtd_loop *l, const struct wtd_mb_msg *m)
 		return 0;
 	case WTD_MB_INSTALL:
 		return apply_install(l, m);
+	case WTD_MB_OFFSET:
+		l->d->mb.old_offset = l->offset;
+		l->offset = m->offset;
+		return 0;
+	case WTD_MB_SHAPE:
+		return apply_shape(l, m->command);
 	}
 	return -EINVAL;
 }
@@ -627,6 +648,7 @@ static void apply_mailbox(struct wtd_loop *l)
 	mb->old_matrix = NULL;
 	mb->old_reference = NULL;
 	mb->old_flat = NULL;
+	mb->old_offset = NULL;
 	mb->result = apply(l, &m);
 	atomic_store_explicit(&mb->done, posted, memory_order_release);
 }
@@ -779,8 +801,8 @@ static void process(struct wtd_loop *l, const void *data, size_t len,
 
 	n_invalid = measure(l, &h, payload, &flags);
 	for (k = 0; k < d->n_slopes; k++) {
-		float r =
-			l->slopes[k] - (l->ref ? l->ref[k] : 0) - l->offset[k];
+		float r = l->slopes[k] - (l->ref ? l->ref[k] : 0) -
+			  (l->offset ? l->offset[k] : 0);
 
 		l->residual[k] = r;
 		ss += (double)r * r;

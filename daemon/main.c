@@ -10,8 +10,9 @@
  * so a taken endpoint is refused before anything runs), the three threads.
  * Anything refused at start-up prints one line on stderr and exits with
  * status 2.  SIGTERM and SIGINT stop the daemon cleanly: the loop sends the
- * flat, every thread finishes, exit status 0.  SIGHUP is ignored for now
- * (re-reading the configuration is left for a later change).
+ * flat, every thread finishes, exit status 0.  SIGHUP re-reads the
+ * configuration file as the `reload` request does (lib/wt_request.h) and
+ * reports by a `reload` event and the log.
  *
  * The protocol the daemon speaks is defined in lib/wt_request.h.
  */
@@ -41,10 +42,14 @@
 #include "wtd.h"
 
 /* The only global mutable state of the program, as signals need it. */
-static volatile sig_atomic_t got_signal;
+static volatile sig_atomic_t got_signal, got_hup;
 
 static void on_signal(int sig)
 {
+	if (sig == SIGHUP) {
+		got_hup = 1;
+		return;
+	}
 	got_signal = sig;
 }
 
@@ -411,8 +416,8 @@ int main(int argc, char **argv)
 	sigemptyset(&sa.sa_mask);
 	sigaction(SIGINT, &sa, NULL);
 	sigaction(SIGTERM, &sa, NULL);
-	sa.sa_handler = SIG_IGN;
 	sigaction(SIGHUP, &sa, NULL);
+	sa.sa_handler = SIG_IGN;
 	sigaction(SIGPIPE, &sa, NULL);
 
 	while ((opt = getopt_long(argc, argv, "c:h", longopts, NULL)) != -1) {
@@ -461,6 +466,7 @@ int main(int argc, char **argv)
 	wt_log_init(&log, "wavetrimd", level, WT_LOG_STREAM, stderr);
 	memset(&d, 0, sizeof(d));
 	d.log = &log;
+	d.config_path = config_path;
 	pthread_mutex_init(&d.slow_mu, NULL);
 	pthread_mutex_init(&d.period_mu, NULL);
 	pthread_mutex_init(&d.evq_mu, NULL);
@@ -567,6 +573,10 @@ int main(int argc, char **argv)
 
 	while (!got_signal && !atomic_load(&d.stop)) {
 		wt_clock_sleep_ns(20 * WT_NS_PER_MS);
+		if (got_hup) {
+			got_hup = 0;
+			atomic_store(&d.reload_requested, true);
+		}
 	}
 	if (got_signal) {
 		wt_log_notice(&log, "signal %d: stopping", (int)got_signal);

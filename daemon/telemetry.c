@@ -337,7 +337,25 @@ void wtd_status_json(struct wtd *d, wt_json *j, const double *sv, int n_sv)
 	} else {
 		wt_json_null(j);
 	}
+	wt_json_key(j, "offsets");
+	wtd_offsets_json(j, s.n_offsets, s.offset_noll, s.offset_nm);
 	wt_json_object_end(j);
+}
+
+void wtd_offsets_json(wt_json *j, int n, const int *noll, const double *nm)
+{
+	int k;
+
+	wt_json_array_begin(j);
+	for (k = 0; k < n; k++) {
+		wt_json_object_begin(j);
+		wt_json_key(j, "noll");
+		wt_json_int(j, noll[k]);
+		wt_json_key(j, "nm");
+		wt_json_double(j, nm[k]);
+		wt_json_object_end(j);
+	}
+	wt_json_array_end(j);
 }
 
 /* --- publishing

@@ -158,6 +158,8 @@ enum wtd_mb {
 	WTD_MB_DECIMATION,   /* i */
 	WTD_MB_INSTALL,	     /* matrix (i modes, d[0] condition), reference,
 			      * flat: NULL keeps the installed one */
+	WTD_MB_OFFSET,	     /* offset: new offset slopes (NULL = none) */
+	WTD_MB_SHAPE,	     /* command: held from now (from open or held) */
 };
 
 struct wtd_mb_msg {
@@ -167,6 +169,8 @@ struct wtd_mb_msg {
 	const float *matrix, *reference, *flat;
 	float *out;
 	wt_calib_params cp;
+	const float *offset;  /* WTD_MB_OFFSET, control-owned like reference */
+	const float *command; /* WTD_MB_SHAPE, copied by the loop */
 };
 
 struct wtd_mailbox {
@@ -175,7 +179,11 @@ struct wtd_mailbox {
 	struct wtd_mb_msg msg;
 	int result; /* the loop's answer to `done` */
 	const float *old_matrix, *old_reference, *old_flat;
+	const float *old_offset;
 };
+
+/** Most Zernike offsets held at once (distinct Noll indices). */
+#define WTD_OFFSETS_MAX 32
 
 /** What the control thread publishes for status (under slow_mu). */
 struct wtd_slow {
@@ -186,6 +194,9 @@ struct wtd_slow {
 	char source[16]; /* "measured", "file" or "" */
 	char file[WT_REQUEST_LINE_MAX + 1];
 	char created[32];
+	int n_offsets; /* offsets the closed loop holds */
+	int offset_noll[WTD_OFFSETS_MAX];
+	double offset_nm[WTD_OFFSETS_MAX];
 };
 
 /** Statistics of the last status period (under period_mu). */
@@ -217,6 +228,9 @@ struct wtd {
 
 	wt_ring *ring;
 	size_t slot_bytes;
+
+	const char *config_path;      /* the INI file read at start (reload) */
+	atomic_bool reload_requested; /* SIGHUP: the control thread reloads */
 
 	struct wtd_counters c;
 	struct wtd_mailbox mb;
@@ -273,6 +287,8 @@ void *wtd_telemetry_main(void *arg);
 /** Write the status object (section 3 of wt_request.h); sv may be NULL
  * (then no singular values). */
 void wtd_status_json(struct wtd *d, wt_json *j, const double *sv, int n_sv);
+/** [{"noll":J,"nm":AMOUNT}, ...] of n offsets. */
+void wtd_offsets_json(wt_json *j, int n, const int *noll, const double *nm);
 /** Queue a JSON event text (copied) for the telemetry thread. */
 void wtd_event_post(struct wtd *d, const char *json);
 /** Names used in JSON. */

@@ -2,10 +2,13 @@
 #include "wt_request.h"
 
 #include <errno.h>
+#include <math.h>
+#include <stdlib.h>
 #include <string.h>
 #include <strings.h>
 
 #include "wt_json.h"
+#include "wt_offset.h"
 
 /** Most words in one request (the longest request has three). */
 #define MAX_WORDS 16
@@ -67,6 +70,15 @@ static const struct word_def words[WT_REQ_COUNT] = {
 	[WT_REQ_SHUTDOWN] = {"shutdown", 0, 0, "shutdown",
 			     "send the flat and stop the daemon"},
 	[WT_REQ_HELP] = {"help", 0, 0, "help", "this list"},
+	[WT_REQ_RELOAD] = {"reload", 0, 0, "reload",
+			   "re-read the configuration file, apply changed "
+			   "live options"},
+	[WT_REQ_OFFSET] = {"offset", 0, 3,
+			   "offset [clear | zernike J AMOUNT_NM]",
+			   "show, clear or add to the aberration the closed "
+			   "loop holds"},
+	[WT_REQ_SHAPE] = {"shape", 3, 3, "shape zernike J AMOUNT_NM",
+			  "open loop: put the mirror in that shape (held)"},
 };
 
 const char *wt_request_word_name(enum wt_req_word word)
@@ -209,6 +221,43 @@ static int parse_count(const char *what, const char *s, double lo, double hi,
 				    what, v, lo, hi);
 	}
 	*out = v;
+	return 0;
+}
+
+/* "zernike J AMOUNT_NM" at word[0..2] into req->noll, req->amount_nm. */
+static int parse_zernike(char **word, const char *usage, wt_request *req,
+			 wt_error *err)
+{
+	char *end = NULL;
+	long j;
+	double v;
+	int rc;
+
+	if (strcmp(word[0], "zernike") != 0) {
+		return wt_error_set(err, -EINVAL,
+				    "unknown argument '" ECHO "'; usage: %s",
+				    word[0], usage);
+	}
+	rc = parse_count("J (Noll index)", word[1], 2, WT_OFFSET_NOLL_MAX, &j,
+			 err);
+	if (rc < 0) {
+		return rc;
+	}
+	errno = 0;
+	v = strtod(word[2], &end);
+	if (word[2][0] == '\0' || *end != '\0' || errno == ERANGE ||
+	    !isfinite(v)) {
+		return wt_error_set(err, -EINVAL,
+				    "AMOUNT_NM: '" ECHO "' is not a number",
+				    word[2]);
+	}
+	if (fabs(v) > WT_REQUEST_AMOUNT_MAX_NM) {
+		return wt_error_set(
+			err, -EINVAL, "AMOUNT_NM: %g is out of range [%g, %g]",
+			v, -WT_REQUEST_AMOUNT_MAX_NM, WT_REQUEST_AMOUNT_MAX_NM);
+	}
+	req->noll = (int)j;
+	req->amount_nm = v;
 	return 0;
 }
 
@@ -380,6 +429,30 @@ int wt_request_parse(const char *line, size_t len, wt_request *req,
 				err->code = -EINVAL;
 			}
 			return -EINVAL;
+		}
+		break;
+	case WT_REQ_OFFSET:
+		if (nargs == 0) {
+			req->offset_op = WT_OFFSET_SHOW;
+		} else if (nargs == 1 && strcmp(word[1], "clear") == 0) {
+			req->offset_op = WT_OFFSET_CLEAR;
+		} else if (nargs == 3) {
+			req->offset_op = WT_OFFSET_ADD;
+			rc = parse_zernike(word + 1, def->usage, req, err);
+			if (rc < 0) {
+				return rc;
+			}
+		} else {
+			return wt_error_set(err, -EINVAL,
+					    "unknown argument '" ECHO
+					    "'; usage: %s",
+					    word[1], def->usage);
+		}
+		break;
+	case WT_REQ_SHAPE:
+		rc = parse_zernike(word + 1, def->usage, req, err);
+		if (rc < 0) {
+			return rc;
 		}
 		break;
 	case WT_REQ_SAVE:

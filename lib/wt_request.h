@@ -146,8 +146,15 @@
  *                        with that reason; options of the sections
  *                        wavetrimd does not read (the simulator's) with
  *                        "SECTION.KEY is read by wavetrim-sim, not by
- *                        wavetrimd".  control.modes and
- *                        control.min_sv_ratio rebuild the control matrix.
+ *                        wavetrimd".  control.modes,
+ *                        control.min_sv_ratio and control.mode_gains
+ *                        rebuild the control matrix from the stored SVD
+ *                        (off the loop thread) and install it between two
+ *                        frames; mode_gains multiplies mode i's 1/sigma_i
+ *                        by entry i (strongest mode first; the last entry
+ *                        repeats for the modes past the list; empty = all
+ *                        1).  A loaded calibration's control matrix is
+ *                        used as stored until one of these changes.
  *                        RESULT: {"key":"SECTION.KEY","value":VALUE} with
  *                        VALUE typed as for get.
  * get SECTION.KEY        RESULT: {"key":"SECTION.KEY","value":VALUE,
@@ -173,6 +180,54 @@
  * shutdown               RESULT: "stopping"; then the daemon sends the
  *                        flat and exits 0, as on SIGTERM.
  * help                   RESULT: [{"word":W,"usage":U,"help":H}, ...].
+ * reload                 Re-read the INI file the daemon was started with
+ *                        (-c FILE), over the defaults, and apply every live
+ *                        option of wavetrimd's sections whose value differs
+ *                        from the running one, as `set` would (each a
+ *                        `config` event).  All or nothing: a file that does
+ *                        not read is refused with the config module's
+ *                        "FILE:LINE: ..." reason; a file that changes an
+ *                        option needing a restart is refused with every
+ *                        such reason ("reload refused: sensor.lenslets
+ *                        needs a restart, ..."); a value the loop refuses
+ *                        undoes those applied before it.  Options `set`
+ *                        changed and the file does not are put back to the
+ *                        file's values.  The simulator's sections are
+ *                        ignored.  SIGHUP does the same; its outcome is a
+ *                        `reload` event and a log line.
+ *                        RESULT: {"ok":true,"file":FILE,"changed":[KEY,
+ *                        ...],"error":null}.
+ * offset                 RESULT: {"offsets":[{"noll":J,"nm":AMOUNT}, ...]},
+ *                        the Zernike offsets the closed loop holds.
+ * offset zernike J AMOUNT_NM
+ *                        Add AMOUNT_NM nm RMS of wavefront (Noll's
+ *                        normalisation, J = 2 .. 1000, |AMOUNT_NM| <=
+ *                        100000) of Noll mode J to the target: the mode's
+ *                        slopes on this sensor (lib/wt_offset.h: mean
+ *                        gradient over each valid subaperture times the
+ *                        lenslet focal length, in pixels) are added to the
+ *                        reference, so the closed loop drives the sensor's
+ *                        wavefront to reference + the offsets.  Offsets add
+ *                        (the same J twice sums its amounts; a sum of 0
+ *                        removes it); at most 32 modes.  Allowed in every
+ *                        state.  The frame records' residual slopes are s -
+ *                        reference - offsets.  An `offsets` event reports
+ *                        the new list.  RESULT: as `offset`.
+ * offset clear           Remove every offset.  RESULT: as `offset`.
+ * shape zernike J AMOUNT_NM
+ *                        Open loop: put the mirror into that shape, command
+ *                        = flat + R p (p the mode's slopes as for offset, R
+ *                        the pseudo-inverse of the interaction matrix over
+ *                        the installed modes, without control.mode_gains),
+ *                        so that it adds the aberration to the beam as the
+ *                        sensor sees it; the loop goes to held and holds it
+ *                        (`open` or `flat` go back to the flat; a second
+ *                        shape replaces the first).  From open and held
+ *                        only; refused without a control matrix and when an
+ *                        actuator would leave [limit_low, limit_high]
+ *                        ("actuator K would be at V, outside the limits
+ *                        ...").  RESULT: {"state":"held","noll":J,"nm":
+ *                        AMOUNT,"largest_stroke":NUMBER} (largest |R p|).
  *
  * ======================================================================
  * 2. Telemetry: PUB on [daemon] telemetry
@@ -236,7 +291,8 @@
  *                   "modes":N,"recommended":N,"condition":NUMBER|null,
  *                   "singular_values":[NUMBER, ...]},  control reply only
  *    "calibrating":null|{"kind":"reference"|"matrix",
- *                        "frames_done":N,"frames_total":N}}
+ *                        "frames_done":N,"frames_total":N},
+ *    "offsets":[{"noll":J,"nm":AMOUNT}, ...]}  held Zernike offsets
  *
  * ======================================================================
  * 4. Events
@@ -281,6 +337,9 @@
  *                           counter per period; also a control matrix that
  *                           could not be built, count 1)
  *   "config"                "key":"SECTION.KEY","value":VALUE
+ *   "reload"                "ok":BOOL,"file":FILE,"changed":[KEY, ...],
+ *                           "error":TEXT|null (a `reload` or SIGHUP)
+ *   "offsets"               "offsets":[{"noll":J,"nm":AMOUNT}, ...]
  *   "saved", "loaded"       "file":TEXT
  *   "stopping"
  *
@@ -394,8 +453,21 @@ enum wt_req_word {
 	WT_REQ_LOAD,
 	WT_REQ_SHUTDOWN,
 	WT_REQ_HELP,
+	WT_REQ_RELOAD,
+	WT_REQ_OFFSET,
+	WT_REQ_SHAPE,
 	WT_REQ_COUNT
 };
+
+/** What an `offset` request does. */
+enum wt_offset_op {
+	WT_OFFSET_SHOW = 0, /**< offset */
+	WT_OFFSET_CLEAR,    /**< offset clear */
+	WT_OFFSET_ADD,	    /**< offset zernike J AMOUNT_NM */
+};
+
+/** Largest |AMOUNT_NM| of an offset or a shape, nm RMS. */
+#define WT_REQUEST_AMOUNT_MAX_NM 100000.0
 
 /** One parsed request.  Strings are unescaped and terminated. */
 typedef struct wt_request {
@@ -404,10 +476,15 @@ typedef struct wt_request {
 	char key[128];			     /**< set, get: "section.key" */
 	char value[WT_REQUEST_LINE_MAX + 1]; /**< set: the value text */
 	char path[WT_REQUEST_LINE_MAX + 1];  /**< save, load: the file */
-	long frames;  /**< reference: FRAMES, 0 = the default */
-	int patterns; /**< calibrate: index in calibration.patterns'
-		       *   choices (0 single, 1 hadamard), -1 = the option */
-	bool capture; /**< flat capture */
+	long frames;		     /**< reference: FRAMES, 0 = the default */
+	int patterns;		     /**< calibrate: index in
+				      *   calibration.patterns' choices (0
+				      *   single, 1 hadamard), -1 = the
+				      *   option */
+	bool capture;		     /**< flat capture */
+	enum wt_offset_op offset_op; /**< offset: show, clear or add */
+	int noll;		     /**< offset zernike, shape: J */
+	double amount_nm;	     /**< offset zernike, shape: AMOUNT_NM */
 } wt_request;
 
 /**

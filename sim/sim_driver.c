@@ -147,16 +147,30 @@ void sim_truth_encode(const sim_truth *t, uint8_t out[SIM_TRUTH_BYTES])
 	put64(out + 71, t->stale);
 	put64(out + 79, t->clipped_total);
 	put64(out + 87, t->timeouts);
+	for (int i = 0; i < SIM_TRUTH_ZERNIKES; i++) {
+		putf64(out + SIM_TRUTH_BYTES_V1 + 8 * i, t->zernike_nm[i]);
+	}
 }
 
 int sim_truth_decode(const void *msg, size_t len, sim_truth *t)
 {
 	const uint8_t *p = msg;
 
-	if (!msg || !t || len != SIM_TRUTH_BYTES ||
-	    memcmp(p, SIM_TRUTH_TOPIC, 5) != 0 ||
-	    get16(p + 5) != SIM_TRUTH_VERSION) {
+	unsigned version;
+
+	if (!msg || !t || len < SIM_TRUTH_BYTES_V1 ||
+	    memcmp(p, SIM_TRUTH_TOPIC, 5) != 0) {
 		return -EINVAL;
+	}
+	version = get16(p + 5);
+	if (!(version == 1 && len == SIM_TRUTH_BYTES_V1) &&
+	    !(version == 2 && len == SIM_TRUTH_BYTES)) {
+		return -EINVAL;
+	}
+	for (int i = 0; i < SIM_TRUTH_ZERNIKES; i++) {
+		t->zernike_nm[i] =
+			version == 2 ? getf64(p + SIM_TRUTH_BYTES_V1 + 8 * i)
+				     : NAN;
 	}
 	t->frame = get64(p + 7);
 	t->command = (int64_t)get64(p + 15);
@@ -578,6 +592,8 @@ static void sim_publish_truth(sim_driver *d, uint64_t id,
 		.clipped_total = (uint64_t)sim_mirror_clipped_total(m),
 		.timeouts = d->st.timeouts,
 	};
+
+	memcpy(t.zernike_nm, wt->zernike_nm, sizeof(t.zernike_nm));
 
 	sim_truth_encode(&t, rec);
 	/* PUB never blocks; a subscriber too slow loses records */

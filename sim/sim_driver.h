@@ -61,8 +61,9 @@
  *
  * In both modes simulated time advances by 1 / sim.frame_rate_hz per frame.
  *
- * Truth message: 95 bytes, single part, all little-endian, no padding; the
- * topic is the 5-byte prefix, so a SUB socket filters on "truth":
+ * Truth message: 207 bytes (version 2), single part, all little-endian, no
+ * padding; the topic is the 5-byte prefix, so a SUB socket filters on
+ * "truth":
  *
  *   offset size type  field
  *        0    5 char  "truth"
@@ -80,9 +81,14 @@
  *       71    8 u64   stale            commands dropped as stale so far
  *       79    8 u64   clipped_total    values clipped so far
  *       87    8 u64   timeouts         lockstep timeouts so far
+ *       95  112 f64[14] zernike_nm     residual's Zernike coefficients of
+ *                                      Noll 2 .. 15, nm RMS (least squares
+ *                                      over the pupil, sim_world.h)
  *
- *   (Python: struct.unpack("<5sHQqddddIIQQQQ", msg).)  The residual is the
- *   sample's wavefront minus the mirror's (sim_world.h).
+ *   (Python: struct.unpack("<5sHQqddddIIQQQQ14d", msg).)  The residual is
+ *   the sample's wavefront minus the mirror's (sim_world.h).  Version 1 was
+ *   the first 95 bytes alone (no Zernike coefficients); sim_truth_decode()
+ *   still reads it, with NaN coefficients.
  */
 #ifndef SIM_DRIVER_H
 #define SIM_DRIVER_H
@@ -98,8 +104,10 @@
 
 /** The truth topic and the record's size on the wire. */
 #define SIM_TRUTH_TOPIC	  "truth"
-#define SIM_TRUTH_VERSION 1
-#define SIM_TRUTH_BYTES	  95
+#define SIM_TRUTH_VERSION  2
+#define SIM_TRUTH_BYTES	   207
+#define SIM_TRUTH_BYTES_V1 95
+#define SIM_TRUTH_ZERNIKES SIM_WORLD_ZERNIKES
 
 /** One truth record (host order). */
 typedef struct sim_truth {
@@ -115,14 +123,16 @@ typedef struct sim_truth {
 	uint64_t stale;
 	uint64_t clipped_total;
 	uint64_t timeouts;
+	/** Noll SIM_WORLD_ZERNIKE_FIRST + i, nm RMS (NaN from version 1) */
+	double zernike_nm[SIM_TRUTH_ZERNIKES];
 } sim_truth;
 
-/** Write t as the 95-byte message into out. */
+/** Write t as the 207-byte version 2 message into out. */
 void sim_truth_encode(const sim_truth *t, uint8_t out[SIM_TRUTH_BYTES]);
 
 /**
- * Read a truth message: 0, or -EINVAL when len is not SIM_TRUTH_BYTES, the
- * topic is not "truth" or the version is unknown.
+ * Read a truth message: 0, or -EINVAL when the topic is not "truth", the
+ * version is not 1 or 2, or len is not that version's size.
  */
 int sim_truth_decode(const void *msg, size_t len, sim_truth *t);
 

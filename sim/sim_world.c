@@ -7,6 +7,11 @@
 #include <string.h>
 
 #include "sim_optics.h"
+#include "wt_recon.h"
+#include "wt_zernike.h"
+
+/* Modes fitted together for the truth: Noll 1 .. ZFIT_MODES. */
+#define ZFIT_MODES (SIM_WORLD_ZERNIKE_FIRST - 1 + SIM_WORLD_ZERNIKES)
 
 struct sim_world {
 	sim_pupil *pupil;
@@ -19,6 +24,9 @@ struct sim_world {
 	double *phase;			       /* n_inside */
 	double *px, *py;		       /* n_inside coordinates */
 	double plane_inv[3][3]; /* inverse normal matrix of 1, x, y */
+	double *zfit;  /* ZFIT_MODES x n_inside: pseudo-inverse of the modes */
+	double *w_ncp; /* n * n: sensor arm's own aberration, or NULL */
+	double *w_sensor; /* n * n: residual + w_ncp, what the camera sees */
 };
 
 static void mirror_params(const wt_config *cfg, sim_mirror_params *p)
@@ -122,6 +130,57 @@ static int invert3(const double m[3][3], double inv[3][3])
 	return 0;
 }
 
+/*
+ * The least-squares fit of Noll 1 .. ZFIT_MODES over the pupil's samples:
+ * the pseudo-inverse of A (n_inside x modes, A[q][c] = Z_{c+1} at sample
+ * q) by the SVD (lib/wt_recon), so the coefficients are zfit . w.
+ */
+static int zernike_fit_create(sim_world *w)
+{
+	const sim_pupil *pp = w->pupil;
+	int n = pp->n_inside, q, c, rc;
+	double *A = malloc(sizeof(double) * (size_t)n * ZFIT_MODES);
+	wt_svd *svd = NULL;
+
+	w->zfit = malloc(sizeof(double) * (size_t)n * ZFIT_MODES);
+	if (!A || !w->zfit || n < ZFIT_MODES) {
+		free(A);
+		return -ENOMEM;
+	}
+	for (q = 0; q < n; q++) {
+		for (c = 0; c < ZFIT_MODES; c++) {
+			A[(size_t)q * ZFIT_MODES + (size_t)c] =
+				wt_zernike_xy(c + 1, w->px[q], w->py[q]);
+		}
+	}
+	rc = wt_svd_compute(A, n, ZFIT_MODES, &svd, NULL);
+	if (rc == 0) {
+		rc = wt_recon_pinv(svd, ZFIT_MODES, NULL, w->zfit);
+	}
+	wt_svd_destroy(svd);
+	free(A);
+	return rc;
+}
+
+void sim_world_zernikes(const sim_world *w, const double *wavefront_um,
+			double *nm)
+{
+	const sim_pupil *pp = w->pupil;
+	int i, q;
+
+	for (i = 0; i < SIM_WORLD_ZERNIKES; i++) {
+		const double *row =
+			w->zfit + (size_t)(SIM_WORLD_ZERNIKE_FIRST - 1 + i) *
+					  (size_t)pp->n_inside;
+		double a = 0;
+
+		for (q = 0; q < pp->n_inside; q++) {
+			a += row[q] * wavefront_um[pp->inside[q]];
+		}
+		nm[i] = 1e3 * a;
+	}
+}
+
 static int sim_world_buffers(sim_world *w)
 {
 	const sim_pupil *pp = w->pupil;
@@ -155,7 +214,46 @@ static int sim_world_buffers(sim_world *w)
 	m[1][0] = m[0][1];
 	m[2][0] = m[0][2];
 	m[2][1] = m[1][2];
+	if (zernike_fit_create(w) < 0) {
+		return -ENOMEM;
+	}
 	return invert3(m, w->plane_inv);
+}
+
+/* sim.ncp_zernike as a map over the whole grid (none: w->w_ncp NULL). */
+static int ncp_create(sim_world *w, const wt_config *cfg, wt_error *err)
+{
+	const sim_pupil *pp = w->pupil;
+	int noll[WT_CONFIG_LIST_MAX];
+	double coef[WT_CONFIG_LIST_MAX];
+	int n = wt_config_zlist(cfg, WT_OPT_SIM_NCP_ZERNIKE, noll, coef,
+				WT_CONFIG_LIST_MAX);
+	size_t nn = (size_t)pp->n * pp->n;
+	int a, b, k;
+
+	if (n < 0) {
+		return wt_error_set(err, n, "sim.ncp_zernike: not readable");
+	}
+	if (n == 0) {
+		return 0;
+	}
+	w->w_ncp = calloc(nn, sizeof(double));
+	w->w_sensor = calloc(nn, sizeof(double));
+	if (!w->w_ncp || !w->w_sensor) {
+		return wt_error_set(err, -ENOMEM, "sim: out of memory");
+	}
+	for (b = 0; b < pp->n; b++) {
+		for (a = 0; a < pp->n; a++) {
+			double x = sim_pupil_coord(pp, a);
+			double y = sim_pupil_coord(pp, b);
+
+			for (k = 0; k < n; k++) {
+				w->w_ncp[b * pp->n + a] +=
+					coef[k] * wt_zernike_xy(noll[k], x, y);
+			}
+		}
+	}
+	return 0;
 }
 
 int sim_world_create(const wt_config *cfg, sim_world **out, wt_error *err)
@@ -207,6 +305,10 @@ int sim_world_create(const wt_config *cfg, sim_world **out, wt_error *err)
 		wt_error_set(err, rc, "sim: out of memory or empty pupil");
 		goto fail;
 	}
+	rc = ncp_create(w, cfg, err);
+	if (rc < 0) {
+		goto fail;
+	}
 	*out = w;
 	return 0;
 fail:
@@ -229,6 +331,9 @@ void sim_world_destroy(sim_world *w)
 	free(w->phase);
 	free(w->px);
 	free(w->py);
+	free(w->zfit);
+	free(w->w_ncp);
+	free(w->w_sensor);
 	free(w);
 }
 
@@ -327,6 +432,7 @@ void sim_world_truth_now(sim_world *w, sim_world_truth *truth)
 	truth->saturated = 0;
 	sim_world_figures(w, w->w_resid, &truth->rms_nm,
 			  &truth->rms_tt_removed_nm, &truth->strehl);
+	sim_world_zernikes(w, w->w_resid, truth->zernike_nm);
 }
 
 int sim_world_expose(sim_world *w, uint16_t *frame, sim_world_truth *truth)
@@ -338,7 +444,16 @@ int sim_world_expose(sim_world *w, uint16_t *frame, sim_world_truth *truth)
 	t.time_s = sim_sample_time(w->sample);
 	sim_world_figures(w, w->w_resid, &t.rms_nm, &t.rms_tt_removed_nm,
 			  &t.strehl);
-	rc = sim_camera_expose(w->camera, w->w_resid, frame);
+	sim_world_zernikes(w, w->w_resid, t.zernike_nm);
+	if (w->w_ncp) {
+		size_t nn = (size_t)w->pupil->n * w->pupil->n, s;
+
+		for (s = 0; s < nn; s++) {
+			w->w_sensor[s] = w->w_resid[s] + w->w_ncp[s];
+		}
+	}
+	rc = sim_camera_expose(w->camera, w->w_ncp ? w->w_sensor : w->w_resid,
+			       frame);
 	if (rc < 0) {
 		return rc;
 	}

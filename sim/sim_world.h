@@ -15,7 +15,13 @@
  *      strehl            |<exp(i phi)>|^2 over the pupil, phi = 2 pi
  *                        residual / wavelength at sensor.wavelength_nm
  *                        (sim_optics_strehl; Born & Wolf 9.1);
- *   3. the camera's frame of the residual (sim_camera.h);
+ *      zernike_nm        the least-squares coefficients of Noll 1 .. 15
+ *                        (Noll 1976 normalisation, lib/wt_zernike.h) of
+ *                        the residual over the pupil's samples, in nm; the
+ *                        truth carries Noll 2 .. 15;
+ *   3. the camera's frame of the residual plus the sensor arm's own
+ *      aberration sim.ncp_zernike (non-common path: the sensor sees it,
+ *      the truth, which is the science path, does not) (sim_camera.h);
  *   4. simulated time advances by 1 / sim.frame_rate_hz (sample drift and
  *      turbulence move), ready for the next exposure.
  */
@@ -31,6 +37,10 @@
 #include "wt_config.h"
 #include "wt_error.h"
 
+/** The residual's Zernike coefficients in the truth: Noll 2 .. 15. */
+#define SIM_WORLD_ZERNIKE_FIRST 2
+#define SIM_WORLD_ZERNIKES	14
+
 /** What one exposure was: the residual's figures. */
 typedef struct sim_world_truth {
 	double time_s;		  /**< simulated time of the exposure */
@@ -38,6 +48,10 @@ typedef struct sim_world_truth {
 	double rms_tt_removed_nm; /**< residual RMS, piston/tip/tilt removed */
 	double strehl;		  /**< Strehl ratio at the sensing wavelength */
 	int saturated;		  /**< saturated pixels in the frame */
+	/** residual's coefficients of Noll SIM_WORLD_ZERNIKE_FIRST + i, nm
+	 * RMS (least squares over the pupil's samples, Noll 1 .. 15 fitted
+	 * together) */
+	double zernike_nm[SIM_WORLD_ZERNIKES];
 } sim_world_truth;
 
 typedef struct sim_world sim_world;
@@ -85,5 +99,13 @@ void sim_world_truth_now(sim_world *w, sim_world_truth *truth);
  */
 void sim_world_figures(sim_world *w, const double *wavefront_um, double *rms_nm,
 		       double *rms_tt_removed_nm, double *strehl);
+
+/**
+ * Least-squares Zernike coefficients of a wavefront on w's pupil grid (um
+ * of path) into nm[SIM_WORLD_ZERNIKES]: Noll SIM_WORLD_ZERNIKE_FIRST + i,
+ * nm RMS.  No allocation.
+ */
+void sim_world_zernikes(const sim_world *w, const double *wavefront_um,
+			double *nm);
 
 #endif /* SIM_WORLD_H */

@@ -234,6 +234,25 @@ int e2e_setup_split(e2e *e, const char *const *overrides)
 	return subscribe_truth(e);
 }
 
+int e2e_rewrite_daemon_ini(e2e *e, const char *const *overrides)
+{
+	char tmp[256];
+
+	if (e->daemon_ini[0]) {
+		snprintf(tmp, sizeof(tmp), "%s.new", e->daemon_ini);
+		if (write_ini(e, tmp, e->daemon_frames, e->daemon_commands,
+			      overrides) != 0) {
+			return -1;
+		}
+		return rename(tmp, e->daemon_ini);
+	}
+	snprintf(tmp, sizeof(tmp), "%s.new", e->ini);
+	if (write_ini(e, tmp, e->frames, e->commands, overrides) != 0) {
+		return -1;
+	}
+	return rename(tmp, e->ini);
+}
+
 static pid_t spawn(const e2e *e, const char *log_name, char *const argv[])
 {
 	char log[256];

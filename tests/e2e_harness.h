@@ -59,6 +59,13 @@ int e2e_setup(e2e *e, const char *const *overrides);
  */
 int e2e_setup_split(e2e *e, const char *const *overrides);
 
+/**
+ * Write the daemon's INI again (e->daemon_ini after e2e_setup_split(),
+ * else e->ini) with these overrides instead of the first ones, atomically
+ * (a new file renamed over it), e.g. before a `reload`.  0 or -1.
+ */
+int e2e_rewrite_daemon_ini(e2e *e, const char *const *overrides);
+
 /** Start wavetrim-sim (waits until its truth stream flows). */
 int e2e_start_sim(e2e *e);
 

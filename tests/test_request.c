@@ -62,6 +62,9 @@ static void parses_every_word(void **state)
 		{"load /tmp/a.h5", WT_REQ_LOAD},
 		{"shutdown", WT_REQ_SHUTDOWN},
 		{"help", WT_REQ_HELP},
+		{"reload", WT_REQ_RELOAD},
+		{"offset", WT_REQ_OFFSET},
+		{"shape zernike 4 50", WT_REQ_SHAPE},
 	};
 	wt_request req;
 	wt_error err;
@@ -519,6 +522,47 @@ static void json_writer_reports_overflow_and_misuse(void **state)
 	assert_true(wt_json_finish(&j) < 0);
 }
 
+/* offset and shape: the Zernike arguments into fields; every bad one is
+ * refused with its reason. */
+static void parses_offsets_and_shapes(void **state)
+{
+	wt_request req;
+	wt_error err;
+
+	(void)state;
+	assert_int_equal(parse("offset", &req, &err), 0);
+	assert_int_equal(req.offset_op, WT_OFFSET_SHOW);
+	assert_int_equal(parse("offset clear", &req, &err), 0);
+	assert_int_equal(req.offset_op, WT_OFFSET_CLEAR);
+	assert_int_equal(parse("offset zernike 4 -37.5", &req, &err), 0);
+	assert_int_equal(req.word, WT_REQ_OFFSET);
+	assert_int_equal(req.offset_op, WT_OFFSET_ADD);
+	assert_int_equal(req.noll, 4);
+	assert_true(req.amount_nm == -37.5);
+	assert_int_equal(parse("shape zernike 11 1e2", &req, &err), 0);
+	assert_int_equal(req.word, WT_REQ_SHAPE);
+	assert_int_equal(req.noll, 11);
+	assert_true(req.amount_nm == 100);
+	refused("offset clean", "unknown argument 'clean'");
+	refused("offset zernike 4", "unknown argument 'zernike'");
+	refused("offset clear 4", "unknown argument 'clear'");
+	refused("offset zernike 4 5 6", "too many arguments");
+	refused("offset tilt 4 5", "unknown argument 'tilt'");
+	refused("offset zernike 1 50", "J (Noll index): 1 is out of range");
+	refused("offset zernike 1001 50", "out of range");
+	refused("offset zernike x 50", "is not a whole number");
+	refused("offset zernike 4 fifty", "AMOUNT_NM: 'fifty' is not a number");
+	refused("offset zernike 4 nan", "is not a number");
+	refused("offset zernike 4 inf", "is not a number");
+	refused("offset zernike 4 1e400", "is not a number");
+	refused("offset zernike 4 \"\"", "is not a number");
+	refused("offset zernike 4 2e5", "out of range");
+	refused("shape", "missing argument");
+	refused("shape zernike 4", "missing argument");
+	refused("shape zernike 4 nan", "is not a number");
+	refused("reload now", "'reload' takes no arguments");
+}
+
 static void help_covers_every_word(void **state)
 {
 	unsigned w;
@@ -560,6 +604,7 @@ static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(json_numbers_follow_rfc8259),
 	cmocka_unit_test(json_nesting_and_commas),
 	cmocka_unit_test(json_writer_reports_overflow_and_misuse),
+	cmocka_unit_test(parses_offsets_and_shapes),
 	cmocka_unit_test(help_covers_every_word),
 };
 

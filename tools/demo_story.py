@@ -16,6 +16,8 @@ import time
 
 import zmq
 
+# The first 95 bytes of a truth record (sim/sim_driver.h; version 2 adds
+# 14 Zernike coefficients after them: "<5sHQqddddIIQQQQ14d").
 TRUTH = struct.Struct("<5sHQqddddIIQQQQ")
 
 
@@ -57,7 +59,7 @@ class Rig:
         for _ in range(frames):
             if not self.truth.poll(5000):
                 raise RuntimeError("no truth from the simulator")
-            rec = TRUTH.unpack(self.truth.recv())
+            rec = TRUTH.unpack_from(self.truth.recv())
             rms += rec[5]
             strehl += rec[7]
         return rms / frames, strehl / frames
@@ -71,7 +73,7 @@ class Rig:
         while True:
             if not self.truth.poll(5000):
                 raise RuntimeError("no truth from the simulator")
-            if TRUTH.unpack(self.truth.recv())[2] > last:
+            if TRUTH.unpack_from(self.truth.recv())[2] > last:
                 return
 
     def wait_state(self, state, timeout_s):

@@ -17,12 +17,14 @@
  * one byte too short give -ENOSPC and stay terminated.
  */
 #include <errno.h>
+#include <math.h>
 #include <stdlib.h>
 #include <string.h>
 
 #include "fuzz_util.h"
 #include "wt_config.h"
 #include "wt_jsonparse.h"
+#include "wt_offset.h"
 #include "wt_request.h"
 
 #define REPLY_MAX 8192
@@ -40,10 +42,37 @@ struct ref_req {
 };
 
 static const char *const ref_names[] = {
-	"status", "ping",      "open",	    "close",	"hold",
-	"flat",	  "reference", "calibrate", "set",	"get",
-	"config", "save",      "load",	    "shutdown", "help",
+	"status",    "ping",	  "open", "close",  "hold",   "flat",
+	"reference", "calibrate", "set",  "get",    "config", "save",
+	"load",	     "shutdown",  "help", "reload", "offset", "shape",
 };
+
+/* "zernike J AMOUNT_NM" at w[0..2]: J whole in [2, WT_OFFSET_NOLL_MAX],
+ * AMOUNT a finite number within WT_REQUEST_AMOUNT_MAX_NM. */
+static int ref_zernike(char **w)
+{
+	char *end;
+	double v;
+	long j = 0;
+
+	if (strcmp(w[0], "zernike") || !w[1][0]) {
+		return -EINVAL;
+	}
+	for (const char *p = w[1]; *p; p++) {
+		if (*p < '0' || *p > '9') {
+			return -EINVAL;
+		}
+		j = j > 100000000 ? j : j * 10 + (*p - '0');
+	}
+	if (j < 2 || j > WT_OFFSET_NOLL_MAX) {
+		return -EINVAL;
+	}
+	v = strtod(w[2], &end);
+	if (!w[2][0] || *end || !(fabs(v) <= WT_REQUEST_AMOUNT_MAX_NM)) {
+		return -EINVAL;
+	}
+	return 0;
+}
 _Static_assert(sizeof(ref_names) / sizeof(ref_names[0]) == WT_REQ_COUNT,
 	       "one name per word of wt_request.h");
 
@@ -176,6 +205,16 @@ static int ref_words(struct ref_req *r)
 	case WT_REQ_SAVE:
 	case WT_REQ_LOAD:
 		return args == 1 && r->w[1][0] ? 0 : -EINVAL;
+	case WT_REQ_OFFSET:
+		if (args == 0) {
+			return 0;
+		}
+		if (args == 1) {
+			return strcmp(r->w[1], "clear") ? -EINVAL : 0;
+		}
+		return args == 3 ? ref_zernike(r->w + 1) : -EINVAL;
+	case WT_REQ_SHAPE:
+		return args == 3 ? ref_zernike(r->w + 1) : -EINVAL;
 	default:
 		return args == 0 ? 0 : -EINVAL;
 	}

@@ -687,8 +687,9 @@ static double rdf64(const uint8_t *p)
 	return d;
 }
 
-/* The simulator's truth (sim/sim_driver.h): 95 bytes, "truth", version 1;
- * only the newest is kept. */
+/* The simulator's truth (sim/sim_driver.h): "truth", version 1 (95 bytes)
+ * or 2 (207 bytes, the same first 95 then Zernike coefficients); only the
+ * newest is kept. */
 static void drain_truth(struct feed *f)
 {
 	for (int k = 0; k < 100000; k++) {
@@ -698,8 +699,14 @@ static void drain_truth(struct feed *f)
 			return;
 		}
 		d = zmq_msg_data(&f->msg);
-		if (zmq_msg_size(&f->msg) != 95 || memcmp(d, "truth", 5) != 0 ||
-		    (d[5] | d[6] << 8) != 1) {
+		size_t len = zmq_msg_size(&f->msg);
+		unsigned ver;
+
+		if (len < 95 || memcmp(d, "truth", 5) != 0) {
+			continue;
+		}
+		ver = (unsigned)(d[5] | d[6] << 8);
+		if (!(ver == 1 && len == 95) && !(ver == 2 && len == 207)) {
 			continue;
 		}
 		pthread_mutex_lock(&f->v->lock);
