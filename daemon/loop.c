@@ -68,6 +68,7 @@ struct wtd_loop {
 	int max_bad;
 	int decimation;
 	uint16_t full_scale; /* sensor.full_scale: a pixel saturates here */
+	int min_valid;	     /* fewer valid subapertures: a dark frame */
 
 	/* frame ids */
 	bool have_id;
@@ -180,6 +181,12 @@ int wtd_loop_create(struct wtd *d, wt_error *err)
 	l->max_bad = (int)wt_config_int(cfg, WT_OPT_SAFETY_MAX_BAD_FRAMES);
 	l->decimation = (int)wt_config_int(cfg, WT_OPT_DAEMON_FRAME_DECIMATION);
 	l->full_scale = (uint16_t)wt_config_int(cfg, WT_OPT_SENSOR_FULL_SCALE);
+	l->min_valid = (int)ceil(
+		wt_config_double(cfg, WT_OPT_SAFETY_MIN_VALID_FRACTION) *
+		d->n_subaps);
+	if (l->min_valid < 1) {
+		l->min_valid = 1;
+	}
 	l->state = WT_STATE_OPEN;
 	atomic_store(&d->c.state, WT_STATE_OPEN);
 	return 0;
@@ -623,8 +630,9 @@ static void count_refusal(struct wtd_loop *l, int rc)
 
 /*
  * Count the frame's kind from l->valid (wt_request.h section 3): saturated
- * subapertures (already marked invalid), and a dark frame when no
- * subaperture is valid (WT_FRAME_DARK: the closed loop holds its command).
+ * subapertures (already marked invalid), and a dark frame when fewer than
+ * min_valid subapertures are valid (WT_FRAME_DARK: the closed loop holds
+ * its command).
  * Zeroes the slopes of the invalid ones.  Returns the invalid count.
  */
 static int classify(struct wtd_loop *l, int n_sat, uint32_t *flags)
@@ -644,7 +652,7 @@ static int classify(struct wtd_loop *l, int n_sat, uint32_t *flags)
 		bump(&d->c.saturated_frames, 1);
 		bump(&d->c.saturated_subaps, (unsigned long long)n_sat);
 	}
-	if (n_invalid == d->n_subaps) {
+	if (d->n_subaps - n_invalid < l->min_valid) {
 		*flags |= WT_FRAME_DARK;
 		bump(&d->c.dark_frames, 1);
 	}

@@ -54,12 +54,15 @@
  *                raw pixel at or above sensor.full_scale: a clipped spot's
  *                centroid is biased): its residual is 0, so it neither
  *                drives the integrator nor enters a calibration.
- *   dark frame   no valid subaperture (shutter closed, source lost, the
- *                whole sensor saturated, all slopes NaN): counted; closed,
+ *   dark frame   fewer valid subapertures than safety.min_valid_fraction
+ *                of the sensor's, never none (shutter closed, source lost,
+ *                the sensor saturated, all slopes NaN): counted; closed,
  *                the integrator is not updated and the last command is
- *                held (the leak does not pull the mirror toward the flat
- *                while nothing is measured); open, held and fault answer
- *                as always.  The loop goes on at once when light returns.
+ *                held: neither the leak nor a reconstruction from part of
+ *                the pupil (whose unseen actuators would drift) moves the
+ *                mirror while too little is measured; open, held and
+ *                fault answer as always.  The loop goes on at once when
+ *                light returns.
  *
  * Request line syntax
  * -------------------
@@ -223,7 +226,8 @@
  *                                sensor.full_scale)
  *              "saturated_subapertures":N, such subapertures, summed
  *                                over frames
- *              "dark_frames":N}, frames with no valid subaperture
+ *              "dark_frames":N}, frames with too few valid
+ *                                subapertures (safety.min_valid_fraction)
  *    "refused":{"short":N,"magic":N,"version":N,"kind":N,"dims":N,
  *               "payload":N,"length":N},   refused messages by reason
  *    "gain":NUMBER,"leak":NUMBER,
@@ -299,8 +303,8 @@
  *       56    4 f32      residual slope RMS, pixels
  *       60    4 u32      flags: bit 0 integrator update rejected (NaN/Inf),
  *                        bit 1 the driver sent slopes (flux is 0), bit 2
- *                        the command could not be sent, bit 3 dark (no
- *                        valid subaperture: closed, the command was held),
+ *                        the command could not be sent, bit 3 dark (too
+ *                        few valid subapertures: closed, command held),
  *                        bit 4 a subaperture saturated
  *       64   8N f32[2N]  residual slopes s - ref - offset, pixels: the N x
  *                        slopes then the N y slopes

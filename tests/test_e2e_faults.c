@@ -49,6 +49,18 @@
  */
 #define CLOSED_FACTOR 5.0
 
+/* How the proxy rewrites the pixels of a frame (pix_mode). */
+enum pix {
+	PIX_SATURATE_LEFT, /* left quarter 64 times brighter, clipped */
+	PIX_SATURATE_ALL,  /* the whole frame so: every spot clipped */
+	PIX_DARK,	   /* every pixel 0: no spot */
+	PIX_SHIFT,	   /* every row moved right by shift_px: a slope bias */
+};
+
+/* The demo camera's full scale: camera.bit_depth 12, 2^12 - 1 counts, the
+ * daemon's sensor.full_scale default. */
+#define FULL_SCALE 4095
+
 /* What the proxy injects; one status counter grows for each. */
 enum inj {
 	INJ_SHORT,	 /* 39 bytes: shorter than the header */
@@ -86,6 +98,14 @@ typedef struct proxy {
 	atomic_int inject_left; /* messages still to inject */
 	atomic_int burst;	/* inject this many at once (1: 1 or 2) */
 	atomic_ullong nan_at;	/* replace this frame by non-finite slopes */
+	/* frame faults, each for the next N real frames (0: off) */
+	atomic_int dup_left;	/* send the frame twice */
+	atomic_int replay_left; /* after the frame, the one before again */
+	atomic_int gap_next;	/* ids seen by the daemon jump by this */
+	atomic_int late_ms;	/* forward the next frame this late, once */
+	atomic_int pix_left;	/* rewrite the pixels of N frames: */
+	atomic_int pix_mode;	/* enum pix */
+	atomic_int shift_px;	/* PIX_SHIFT: spots moved right this far */
 
 	/* set by the proxy */
 	atomic_int ready, failed;
@@ -98,13 +118,21 @@ typedef struct proxy {
 	atomic_ullong injected;	       /* all injected messages */
 	atomic_ullong kind[INJ_COUNT]; /* by kind */
 	atomic_ullong last_sent;       /* id of the newest real frame */
+	atomic_ullong extra;	       /* duplicated and replayed frames */
+	atomic_ullong rewritten;       /* frames whose pixels were changed */
+	atomic_ullong outside;	       /* command values outside [-1, 1] */
+	atomic_ullong held_same;       /* commands equal to the one before */
+	atomic_ullong pix_last;	       /* id of the newest rewritten frame */
+	atomic_int pause_seen;	       /* paused, and no frame in hand */
 	atomic_int captured;	       /* bit 0: cmd_before, bit 1: cmd_nan */
 	float cmd_before[ACT_MAX];     /* the command answering nan_at - 1 */
 	float cmd_nan[ACT_MAX];	       /* ... answering nan_at */
 
 	/* the proxy thread's own */
-	uint8_t *real, *build;
-	size_t real_len;
+	uint8_t *real, *build, *prev;
+	size_t real_len, prev_len;
+	uint64_t id_offset; /* added to the ids the daemon sees */
+	float cmd_last[ACT_MAX];
 	uint64_t last_answered;
 	bool answered_any;
 	unsigned next_kind;
@@ -257,6 +285,86 @@ static size_t build_nan(proxy *p, const wt_header *real)
 	return rc > 0 ? (size_t)rc : 0;
 }
 
+static void sleep_ms(int ms);
+
+/* Rewrite the pixels of the frame in p->real (header h) by p->pix_mode. */
+static void rewrite_pixels(proxy *p, const wt_header *h)
+{
+	uint16_t *px = (uint16_t *)(p->real + WT_PROTO_HEADER_BYTES);
+	size_t w = h->width, rows = h->height;
+	int mode = atomic_load(&p->pix_mode);
+	size_t shift = (size_t)atomic_load(&p->shift_px);
+
+	for (size_t r = 0; r < rows; r++) {
+		uint16_t *row = px + r * w;
+
+		for (size_t c = 0; c < w; c++) {
+			unsigned v = 64u * row[c];
+
+			if (mode == PIX_DARK) {
+				row[c] = 0;
+			} else if (mode == PIX_SATURATE_ALL ||
+				   (mode == PIX_SATURATE_LEFT && c < w / 4)) {
+				row[c] = (uint16_t)(v < FULL_SCALE ? v
+								   : FULL_SCALE);
+			}
+		}
+		if (mode == PIX_SHIFT && shift < w) {
+			memmove(row + shift, row, 2 * (w - shift));
+			memset(row, 0, 2 * shift);
+		}
+	}
+}
+
+/* Send one more message than the real frame; counted as extra. */
+static int send_extra(proxy *p, void *to_daemon, const void *msg, size_t n)
+{
+	if (send_all(p, to_daemon, msg, n) != 0) {
+		return -1;
+	}
+	atomic_fetch_add(&p->extra, 1);
+	return 0;
+}
+
+/* The frame faults of the real frame in p->real (header h), before it is
+ * forwarded: late, gap, pixels. */
+static void fault_before(proxy *p, const wt_header *h)
+{
+	int late = atomic_exchange(&p->late_ms, 0);
+
+	if (late > 0) {
+		sleep_ms(late);
+	}
+	p->id_offset += (uint64_t)atomic_exchange(&p->gap_next, 0);
+	if (h->kind == WT_KIND_PIXELS_U16 && atomic_load(&p->pix_left) > 0) {
+		rewrite_pixels(p, h);
+		atomic_store(&p->pix_last, h->sequence);
+		atomic_fetch_sub(&p->pix_left, 1);
+		atomic_fetch_add(&p->rewritten, 1);
+	}
+	put_u64(p->real + 8, h->sequence + p->id_offset);
+}
+
+/* ... and after: duplicate, replay the frame before (out of order). */
+static int fault_after(proxy *p, void *to_daemon)
+{
+	if (atomic_load(&p->dup_left) > 0) {
+		if (send_extra(p, to_daemon, p->real, p->real_len) != 0) {
+			return -1;
+		}
+		atomic_fetch_sub(&p->dup_left, 1);
+	}
+	if (atomic_load(&p->replay_left) > 0 && p->prev_len > 0) {
+		if (send_extra(p, to_daemon, p->prev, p->prev_len) != 0) {
+			return -1;
+		}
+		atomic_fetch_sub(&p->replay_left, 1);
+	}
+	memcpy(p->prev, p->real, p->real_len);
+	p->prev_len = p->real_len;
+	return 0;
+}
+
 static int on_frame(proxy *p, void *from_sim, void *to_daemon)
 {
 	int len = zmq_recv(from_sim, p->real, MSG_MAX, 0);
@@ -271,13 +379,20 @@ static int on_frame(proxy *p, void *from_sim, void *to_daemon)
 		return -1; /* the simulator sends only good frames */
 	}
 	p->real_len = (size_t)len;
+	fault_before(p, &h);
 	if (h.sequence == atomic_load(&p->nan_at)) {
-		size_t n = build_nan(p, &h);
+		wt_header seen = h;
+		size_t n;
 
+		seen.sequence += p->id_offset;
+		n = build_nan(p, &seen);
 		if (n == 0 || send_all(p, to_daemon, p->build, n) != 0) {
 			return -1;
 		}
 	} else if (send_all(p, to_daemon, p->real, p->real_len) != 0) {
+		return -1;
+	}
+	if (fault_after(p, to_daemon) != 0) {
 		return -1;
 	}
 	atomic_store(&p->last_sent, h.sequence);
@@ -321,6 +436,13 @@ static int on_command(proxy *p, void *from_daemon, void *to_sim)
 		return send_all(p, to_sim, msg, (size_t)len);
 	}
 	atomic_store(&p->n_act, (int)h.width);
+	/* Back to the simulator's ids (the daemon's are p->id_offset up). */
+	if (h.sequence >= p->id_offset) {
+		h.sequence -= p->id_offset;
+		put_u64(msg + 8, h.sequence);
+	} else {
+		atomic_fetch_add(&p->bogus, 1);
+	}
 	if (h.sequence > atomic_load(&p->last_sent) ||
 	    (p->answered_any && h.sequence < p->last_answered)) {
 		atomic_fetch_add(&p->bogus, 1);
@@ -334,7 +456,14 @@ static int on_command(proxy *p, void *from_daemon, void *to_sim)
 		if (!isfinite(v[j])) {
 			atomic_fetch_add(&p->nonfinite, 1);
 		}
+		if (!(v[j] >= -1.0f && v[j] <= 1.0f)) {
+			atomic_fetch_add(&p->outside, 1);
+		}
 	}
+	if (memcmp(v, p->cmd_last, 4 * (size_t)h.width) == 0) {
+		atomic_fetch_add(&p->held_same, 1);
+	}
+	memcpy(p->cmd_last, v, 4 * (size_t)h.width);
 	if (nan_at != NO_FRAME && h.sequence + 1 == nan_at) {
 		memcpy(p->cmd_before, v, 4 * (size_t)h.width);
 		atomic_fetch_or(&p->captured, 1);
@@ -357,7 +486,8 @@ static void *proxy_main(void *arg)
 
 	p->real = malloc(MSG_MAX);
 	p->build = malloc(MSG_MAX);
-	if (!from_sim || !to_sim || !to_daemon || !from_daemon || !p->real ||
+	p->prev = malloc(MSG_MAX);
+	if (!p->prev || !from_sim || !to_sim || !to_daemon || !from_daemon || !p->real ||
 	    !p->build) {
 		atomic_store(&p->failed, 1);
 	}
@@ -366,7 +496,10 @@ static void *proxy_main(void *arg)
 		zmq_pollitem_t it[2] = {{from_daemon, 0, ZMQ_POLLIN, 0},
 					{from_sim, 0, ZMQ_POLLIN, 0}};
 		int n = atomic_load(&p->paused) ? 1 : 2;
-		int rc = zmq_poll(it, n, 20);
+		int rc;
+
+		atomic_store(&p->pause_seen, n == 1);
+		rc = zmq_poll(it, n, 20);
 
 		if (rc < 0 && zmq_errno() != EINTR) {
 			atomic_store(&p->failed, 1);
@@ -387,6 +520,7 @@ static void *proxy_main(void *arg)
 	zmq_ctx_term(ctx);
 	free(p->real);
 	free(p->build);
+	free(p->prev);
 	return NULL;
 }
 
@@ -448,6 +582,12 @@ static int drained(proxy *p)
 	return atomic_load(&p->commands) == atomic_load(&p->frames);
 }
 
+/* The proxy has seen the pause and holds no frame. */
+static int paused_now(proxy *p)
+{
+	return atomic_load(&p->pause_seen);
+}
+
 static int injected_all(proxy *p)
 {
 	return atomic_load(&p->inject_left) == 0;
@@ -456,6 +596,20 @@ static int injected_all(proxy *p)
 static int captured_both(proxy *p)
 {
 	return atomic_load(&p->captured) == 3;
+}
+
+/* Wait until the proxy has used up a fault counter (*v == 0); 0 or -1. */
+static int proxy_done(proxy *p, atomic_int *v, int timeout_ms)
+{
+	uint64_t deadline = wt_clock_ns() + (uint64_t)timeout_ms * 1000000ull;
+
+	while (atomic_load(v) != 0) {
+		if (wt_clock_ns() > deadline || atomic_load(&p->failed)) {
+			return -1;
+		}
+		sleep_ms(2);
+	}
+	return 0;
 }
 
 /* --- helpers ---------------------------------------------------------- */
@@ -543,6 +697,90 @@ static double num(e2e *e, const char *path)
 
 	assert_false(isnan(v));
 	return v;
+}
+
+/*
+ * Take no more frames until every one forwarded is answered and the daemon
+ * has counted every message sent (status in e->reply then), 3 s at most
+ * (a loaded machine); then take frames again.
+ */
+static void settle(e2e *e, proxy *p)
+{
+	double sent;
+
+	atomic_store(&p->paused, 1);
+	assert_int_equal(proxy_wait(p, paused_now, 2000), 0);
+	assert_int_equal(proxy_wait(p, drained, 2000), 0);
+	sent = (double)atomic_load(&p->frames) +
+	       (double)atomic_load(&p->injected) +
+	       (double)atomic_load(&p->extra);
+	for (int k = 0; k < 150; k++) {
+		assert_int_equal(e2e_request(e, "status"), 1);
+		if (num(e, "result.counts.received") == sent) {
+			break;
+		}
+		sleep_ms(20);
+	}
+	assert_true(num(e, "result.counts.received") == sent);
+	atomic_store(&p->paused, 0);
+}
+
+static void assert_state(e2e *e, const char *want)
+{
+	char buf[64];
+
+	assert_int_equal(e2e_request(e, "status"), 1);
+	assert_int_equal(e2e_reply_string(e, "result.state", buf, sizeof(buf)),
+			 0);
+	assert_string_equal(buf, want);
+}
+
+/* The sensor's size from a frame record, into the proxy. */
+static int learn_sensor(e2e *e, proxy *p)
+{
+	static float a[4 * SLOPE_MAX];
+	wt_frame_record h;
+	void *rec = records_sub(e);
+
+	assert_int_equal(next_record(rec, &h, a, 4 * SLOPE_MAX, 5000), 0);
+	zmq_close(rec);
+	atomic_store(&p->n_slopes, 2 * (int)h.n_subaps);
+	return (int)h.n_subaps;
+}
+
+/*
+ * Pixels rewritten for the next n frames by mode, while closed: wait until
+ * done and return the truth RMS of the n frames exposed with the commands
+ * answering them (rms[k]: the one answering the k-th rewritten frame).
+ */
+static void rewrite_frames(e2e *e, proxy *p, int mode, int n, double *rms)
+{
+	sim_truth t;
+	uint64_t first;
+
+	/* With the proxy holding no frame, the next one it takes is first. */
+	atomic_store(&p->paused, 1);
+	assert_int_equal(proxy_wait(p, paused_now, 2000), 0);
+	assert_int_equal(proxy_wait(p, drained, 2000), 0);
+	first = atomic_load(&p->last_sent) + 1;
+	atomic_store(&p->pix_mode, mode);
+	atomic_store(&p->pix_left, n);
+	atomic_store(&p->paused, 0);
+	assert_int_equal(proxy_done(p, &p->pix_left, 10000), 0);
+	assert_true(atomic_load(&p->pix_last) == first + (uint64_t)n - 1);
+	for (int k = 0; k < n; k++) {
+		rms[k] = NAN;
+	}
+	/* Truth frame m shows the command answering m - 1 (sim.delay 1). */
+	do {
+		assert_int_equal(e2e_truth(e, &t, 5000), 0);
+		if (t.frame > first && t.frame <= first + (uint64_t)n) {
+			rms[t.frame - first - 1] = t.rms_nm;
+		}
+	} while (t.frame < first + (uint64_t)n);
+	for (int k = 0; k < n; k++) {
+		assert_false(isnan(rms[k]));
+	}
 }
 
 /* --- the cases ------------------------------------------------------------ */
@@ -896,11 +1134,166 @@ static void max_bad_frames_in_a_row_fault_one_fewer_do_not(void **st)
 	stop_clean(&e, &p);
 }
 
+/*
+ * Frames out of the ordinary while the loop is closed, each counted by its
+ * kind (wt_request.h section 3, "Frames that are not faults"), no fault:
+ * 5 duplicates and 5 older frames replayed after a newer one (skipped:
+ * stale 10, duplicates 5), 3 gaps of 7 ids (dropped 21), 2 frames 300 ms
+ * late (answered; driver.timeout_ms is 1000).  Every real frame is
+ * answered once and in order, every command finite and within [-1, 1],
+ * and the true residual stays that of the closed loop.
+ */
+static void late_reordered_duplicated_and_gap_frames_are_counted(void **st)
+{
+	static const char *const ov[] = {"control.gain=0.5", "control.leak=0",
+					 "safety.max_bad_frames=10", NULL};
+	e2e e;
+	proxy p;
+	sim_truth t;
+	double open_rms, closed_rms, after_rms;
+
+	(void)st;
+	start_proxied(&e, &p, ov, true);
+	learn_sensor(&e, &p);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	open_rms = mean_rms(&e, 3);
+	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	assert_int_equal(e2e_truth_skip(&e, 40, &t, 5000), 0);
+	closed_rms = mean_rms(&e, 3);
+
+	atomic_store(&p.dup_left, 5);
+	assert_int_equal(proxy_done(&p, &p.dup_left, 5000), 0);
+	atomic_store(&p.replay_left, 5);
+	assert_int_equal(proxy_done(&p, &p.replay_left, 5000), 0);
+	for (int k = 0; k < 3; k++) {
+		atomic_store(&p.gap_next, 7);
+		assert_int_equal(proxy_done(&p, &p.gap_next, 5000), 0);
+		atomic_store(&p.late_ms, 300);
+		assert_int_equal(proxy_done(&p, &p.late_ms, 5000), 0);
+	}
+	settle(&e, &p);
+	assert_true(num(&e, "result.counts.stale") == 10);
+	assert_true(num(&e, "result.counts.duplicates") == 5);
+	assert_true(num(&e, "result.counts.dropped") == 21);
+	assert_true(num(&e, "result.counts.faults") == 0);
+	assert_true(num(&e, "result.counts.refused") == 0);
+	assert_true(num(&e, "result.counts.rejected_updates") == 0);
+	assert_true(num(&e, "result.frames") == (double)atomic_load(&p.frames));
+	assert_state(&e, "closed");
+	assert_int_equal(atomic_load(&p.extra), 10);
+	assert_int_equal(atomic_load(&p.bogus), 0);
+	assert_int_equal(atomic_load(&p.repeats), 0);
+	assert_int_equal(atomic_load(&p.nonfinite), 0);
+	assert_int_equal(atomic_load(&p.outside), 0);
+
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	assert_int_equal(e2e_truth_skip(&e, 5, &t, 5000), 0);
+	after_rms = mean_rms(&e, 3);
+	print_message("open %.1f nm, closed %.2f nm, after the frame faults "
+		      "%.2f nm\n",
+		      open_rms, closed_rms, after_rms);
+	assert_true(closed_rms < open_rms / CLOSED_FACTOR);
+	assert_true(after_rms < open_rms / CLOSED_FACTOR);
+	assert_int_equal(t.refused, 0);
+	assert_int_equal(t.timeouts, 0);
+	stop_clean(&e, &p);
+}
+
+/*
+ * A saturated and a dark sensor while closed (a leak of 0.05, so that an
+ * integrator fed zeros would visibly pull the mirror toward the flat: 1 -
+ * 0.95^20 = 64% in 20 frames).
+ * - Left quarter 64 times over-exposed, clipped at full scale (4095, 12
+ *   bits) for 20 frames: 20 saturated frames, several saturated
+ *   subapertures in each, none dark (over half the sensor still valid,
+ *   safety.min_valid_fraction 0.5); the loop goes on with the rest, every
+ *   command within the limits and the truth below the open loop's.
+ * - Dark (all pixels 0) for 20 frames, then the whole sensor saturated for
+ *   10: dark frames counted (20, then 10 more, also 10 saturated); the
+ *   command answering each is the one before, bit for bit (the proxy
+ *   compares), so the simulator's truth shows the mirror standing still
+ *   (equal RMS) over them; light back, the loop goes on closed.
+ */
+static void saturated_and_dark_sensor_counted_dark_holds_command(void **st)
+{
+	static const char *const ov[] = {"control.gain=0.5",
+					 "control.leak=0.05", NULL};
+	e2e e;
+	proxy p;
+	sim_truth t;
+	double open_rms, closed_rms, sat_rms, after_rms, sat_subaps;
+	double rms[20];
+	unsigned long long same;
+
+	(void)st;
+	start_proxied(&e, &p, ov, true);
+	learn_sensor(&e, &p);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	open_rms = mean_rms(&e, 3);
+	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	assert_int_equal(e2e_truth_skip(&e, 40, &t, 5000), 0);
+	closed_rms = mean_rms(&e, 3);
+	assert_int_equal(e2e_request(&e, "status"), 1);
+	/* The demo's exposure saturates nothing of itself. */
+	assert_true(num(&e, "result.counts.saturated_frames") == 0);
+	assert_true(num(&e, "result.counts.dark_frames") == 0);
+
+	rewrite_frames(&e, &p, PIX_SATURATE_LEFT, 20, rms);
+	settle(&e, &p);
+	assert_true(num(&e, "result.counts.saturated_frames") == 20);
+	sat_subaps = num(&e, "result.counts.saturated_subapertures");
+	assert_true(sat_subaps >= 20 * 5);
+	assert_true(num(&e, "result.counts.dark_frames") == 0);
+	sat_rms = rms[19];
+	assert_true(sat_rms < open_rms);
+
+	same = atomic_load(&p.held_same);
+	rewrite_frames(&e, &p, PIX_DARK, 20, rms);
+	settle(&e, &p);
+	assert_true(num(&e, "result.counts.dark_frames") == 20);
+	assert_true(num(&e, "result.counts.saturated_frames") == 20);
+	assert_state(&e, "closed");
+	assert_int_equal(atomic_load(&p.held_same) - same, 20);
+	for (int k = 1; k < 20; k++) {
+		assert_true(rms[k] == rms[0]);
+	}
+
+	same = atomic_load(&p.held_same);
+	rewrite_frames(&e, &p, PIX_SATURATE_ALL, 10, rms);
+	settle(&e, &p);
+	assert_true(num(&e, "result.counts.dark_frames") == 30);
+	assert_true(num(&e, "result.counts.saturated_frames") == 30);
+	assert_true(num(&e, "result.counts.saturated_subapertures") >
+		    sat_subaps);
+	assert_int_equal(atomic_load(&p.held_same) - same, 10);
+	for (int k = 1; k < 10; k++) {
+		assert_true(rms[k] == rms[0]);
+	}
+
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	assert_int_equal(e2e_truth_skip(&e, 20, &t, 5000), 0);
+	after_rms = mean_rms(&e, 3);
+	print_message("open %.1f nm, closed %.2f nm, quarter saturated %.2f nm, "
+		      "%.0f saturated subapertures in 20 frames, after dark "
+		      "%.2f nm\n",
+		      open_rms, closed_rms, sat_rms, sat_subaps, after_rms);
+	assert_true(after_rms < open_rms / CLOSED_FACTOR);
+	assert_true(num(&e, "result.counts.faults") == 0);
+	assert_int_equal(atomic_load(&p.bogus), 0);
+	assert_int_equal(atomic_load(&p.nonfinite), 0);
+	assert_int_equal(atomic_load(&p.outside), 0);
+	stop_clean(&e, &p);
+}
+
 static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(fixture_calibration_through_proxy_is_saved),
 	cmocka_unit_test(malformed_frames_counted_by_reason_loop_unaffected),
 	cmocka_unit_test(nan_slopes_frame_leaves_command_unchanged_and_finite),
 	cmocka_unit_test(max_bad_frames_in_a_row_fault_one_fewer_do_not),
+	cmocka_unit_test(late_reordered_duplicated_and_gap_frames_are_counted),
+	cmocka_unit_test(saturated_and_dark_sensor_counted_dark_holds_command),
 };
 
 WT_TEST_MAIN(tests)
