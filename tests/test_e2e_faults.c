@@ -22,7 +22,10 @@
 #include <pthread.h>
 #include <stdatomic.h>
 #include <string.h>
+#include <dirent.h>
+#include <signal.h>
 #include <sys/stat.h>
+#include <sys/wait.h>
 #include <time.h>
 #include <unistd.h>
 
@@ -34,6 +37,8 @@
 #include "wt_request.h"
 
 #define CAL_FILE WT_BINARY_DIR "/tests/e2e-faults-calibration.h5"
+#define SAVE_DIR WT_BINARY_DIR "/tests"
+#define SAVE_NAME "e2e-faults-sigterm.h5"
 
 /* Larger than any message of the demo scenario (256 x 256 pixels). */
 #define MSG_MAX	  (WT_PROTO_HEADER_BYTES + 2 * 512 * 512)
@@ -1287,6 +1292,212 @@ static void saturated_and_dark_sensor_counted_dark_holds_command(void **st)
 	stop_clean(&e, &p);
 }
 
+/* A SUB socket on the daemon's events (closed by the caller). */
+static void *events_sub(e2e *e)
+{
+	void *s = zmq_socket(e->ctx, ZMQ_SUB);
+	int zero = 0;
+
+	assert_non_null(s);
+	zmq_setsockopt(s, ZMQ_LINGER, &zero, sizeof(zero));
+	zmq_setsockopt(s, ZMQ_SUBSCRIBE, "event ", 6);
+	assert_int_equal(zmq_connect(s, e->telemetry), 0);
+	return s;
+}
+
+/* Read events until one holds every one of the NULL-terminated texts;
+ * 0, or -1 after timeout_ms. */
+static int wait_event(void *sub, const char *const *texts, int timeout_ms)
+{
+	static char msg[65536];
+	uint64_t deadline = wt_clock_ns() + (uint64_t)timeout_ms * 1000000ull;
+
+	while (wt_clock_ns() < deadline) {
+		zmq_pollitem_t it = {sub, 0, ZMQ_POLLIN, 0};
+		int len, all = 1;
+
+		if (zmq_poll(&it, 1, 100) <= 0) {
+			continue;
+		}
+		len = zmq_recv(sub, msg, sizeof(msg) - 1, 0);
+		if (len < 0) {
+			continue;
+		}
+		msg[len < (int)sizeof(msg) - 1 ? len : (int)sizeof(msg) - 1] =
+			'\0';
+		for (const char *const *t = texts; *t; t++) {
+			all &= strstr(msg, *t) != NULL;
+		}
+		if (all) {
+			return 0;
+		}
+	}
+	return -1;
+}
+
+/*
+ * Read truth until a frame shows the residual within 2% of want (at most
+ * 50 records); its RMS.  After a daemon has gone the lockstep simulator
+ * exposes a frame per sim.timeout_ms with the command in force.
+ */
+static double truth_reaches(e2e *e, double want)
+{
+	sim_truth t = {0};
+
+	for (int k = 0; k < 50; k++) {
+		if (e2e_truth(e, &t, 5000) != 0) {
+			break;
+		}
+		if (fabs(t.rms_nm - want) < 0.02 * want) {
+			break;
+		}
+	}
+	return t.rms_nm;
+}
+
+/* Files in dir whose name starts with prefix and holds ".tmp". */
+static int temp_files(const char *dir, const char *prefix)
+{
+	DIR *d = opendir(dir);
+	struct dirent *de;
+	int n = 0;
+
+	assert_non_null(d);
+	while ((de = readdir(d)) != NULL) {
+		if (strncmp(de->d_name, prefix, strlen(prefix)) == 0 &&
+		    strstr(de->d_name, ".tmp")) {
+			n++;
+		}
+	}
+	closedir(d);
+	return n;
+}
+
+/* The save request of the SIGTERM case, from a thread of its own. */
+static void *save_thread(void *arg)
+{
+	e2e *e = arg;
+
+	return (void *)(intptr_t)e2e_request(e, "save %s/%s", SAVE_DIR,
+					    SAVE_NAME);
+}
+
+/* Close and let the loop converge (40 frames); the closed truth RMS. */
+static double close_and_converge(e2e *e)
+{
+	sim_truth t;
+
+	assert_int_equal(e2e_request(e, "close"), 1);
+	assert_int_equal(e2e_sync(e, 5000), 0);
+	assert_int_equal(e2e_truth_skip(e, 40, &t, 5000), 0);
+	return mean_rms(e, 3);
+}
+
+/*
+ * SIGTERM in each state - open, calibrating (mid-measurement), closed
+ * (with a `save` in flight), held, fault (safety.safe_command = hold, so
+ * that the fault keeps the correction and only the exit flattens) - makes
+ * the daemon send the flat and exit 0: the simulator's truth goes back to
+ * the open-loop residual (the flat; wt_request.h, `shutdown`).  No
+ * temporary file of the save is left, and the file saved loads in the
+ * next daemon (it was written whole: lib/wt_store.h renames a finished
+ * temporary file).  No command outside [-1, 1] or non-finite ever.
+ */
+static void sigterm_in_every_state_sends_flat_and_exits_zero(void **st)
+{
+	static const char *const ov[] = {"control.gain=0.5", "control.leak=0",
+					 "safety.safe_command=hold", NULL};
+	static const char *const states[] = {"open", "calibrating", "closed",
+					     "held", "fault"};
+	char saved[512];
+
+	(void)st;
+	snprintf(saved, sizeof(saved), "%s/%s", SAVE_DIR, SAVE_NAME);
+	unlink(saved);
+	for (int k = 0; k < 5; k++) {
+		e2e e;
+		proxy p;
+		pthread_t saver;
+		void *save_rc = NULL;
+		double open_rms, before, after;
+		int status;
+
+		start_proxied(&e, &p, ov, true);
+		assert_int_equal(e2e_sync(&e, 5000), 0);
+		open_rms = mean_rms(&e, 3);
+		before = open_rms;
+		if (k == 1) {
+			assert_int_equal(e2e_request(&e, "calibrate"), 1);
+			assert_int_equal(e2e_wait_state(&e, "calibrating", 5000),
+					 0);
+			sleep_ms(300);
+			assert_int_equal(e2e_request(&e, "status"), 1);
+			assert_true(num(&e, "result.calibrating.frames_done") >
+				    0);
+		} else if (k >= 2) {
+			before = close_and_converge(&e);
+			assert_true(before < open_rms / CLOSED_FACTOR);
+		}
+		if (k == 3) {
+			/* The file the closed case saved loads whole. */
+			assert_int_equal(e2e_request(&e, "load %s", saved), 1);
+			assert_int_equal(e2e_request(&e, "hold"), 1);
+		} else if (k == 4) {
+			static const char *const silent[] = {
+				"\"event\":\"fault\"",
+				"\"reason\":\"driver silent\"", NULL};
+			void *ev = events_sub(&e);
+
+			sleep_ms(100); /* the subscription reaches the daemon */
+			atomic_store(&p.paused, 1);
+			assert_int_equal(wait_event(ev, silent, 5000), 0);
+			zmq_close(ev);
+			assert_int_equal(e2e_wait_state(&e, "fault", 5000), 0);
+			atomic_store(&p.paused, 0);
+			assert_int_equal(e2e_sync(&e, 5000), 0);
+			before = mean_rms(&e, 3);
+			assert_true(before < open_rms / CLOSED_FACTOR);
+		}
+		assert_state(&e, states[k]);
+		if (k == 2) {
+			assert_int_equal(pthread_create(&saver, NULL,
+							save_thread, &e),
+					 0);
+			sleep_ms(2);
+		}
+		assert_int_equal(kill(e.daemon, SIGTERM), 0);
+		assert_int_equal(waitpid(e.daemon, &status, 0), e.daemon);
+		e.daemon = 0;
+		if (k == 2) {
+			pthread_join(saver, &save_rc);
+		}
+		after = truth_reaches(&e, open_rms);
+		print_message("SIGTERM %-11s: exit %d, truth %.1f nm before, "
+			      "%.1f nm after (open loop %.1f nm)%s\n",
+			      states[k],
+			      WIFEXITED(status) ? WEXITSTATUS(status) : -1,
+			      before, after, open_rms,
+			      k == 2 ? ((intptr_t)save_rc == 1
+						? ", save done"
+						: ", save not done")
+				     : "");
+		assert_true(WIFEXITED(status));
+		assert_int_equal(WEXITSTATUS(status), 0);
+		assert_true(fabs(after - open_rms) < 0.02 * open_rms);
+		assert_int_equal(temp_files(SAVE_DIR, SAVE_NAME), 0);
+		if (k == 2 && (intptr_t)save_rc != 1) {
+			/* Not answered: then it was not written either. */
+			assert_int_not_equal(access(saved, F_OK), 0);
+		}
+		assert_int_equal(atomic_load(&p.outside), 0);
+		assert_int_equal(atomic_load(&p.nonfinite), 0);
+		e2e_teardown(&e, NULL, &status);
+		proxy_stop(&p);
+		assert_int_equal(status, 0);
+	}
+	unlink(saved);
+}
+
 static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(fixture_calibration_through_proxy_is_saved),
 	cmocka_unit_test(malformed_frames_counted_by_reason_loop_unaffected),
@@ -1294,6 +1505,7 @@ static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(max_bad_frames_in_a_row_fault_one_fewer_do_not),
 	cmocka_unit_test(late_reordered_duplicated_and_gap_frames_are_counted),
 	cmocka_unit_test(saturated_and_dark_sensor_counted_dark_holds_command),
+	cmocka_unit_test(sigterm_in_every_state_sends_flat_and_exits_zero),
 };
 
 WT_TEST_MAIN(tests)
