@@ -1498,6 +1498,107 @@ static void sigterm_in_every_state_sends_flat_and_exits_zero(void **st)
 	unlink(saved);
 }
 
+/* Wait for the fault, with its event; the reason from status into buf. */
+static void wait_fault(e2e *e, void *ev, char *buf, size_t len)
+{
+	static const char *const fault[] = {"\"event\":\"fault\"", NULL};
+
+	assert_int_equal(wait_event(ev, fault, 15000), 0);
+	assert_int_equal(e2e_wait_state(e, "fault", 5000), 0);
+	assert_int_equal(e2e_reply_string(e, "result.fault", buf, len), 0);
+}
+
+/*
+ * The driver fails while the loop is closed (driver.timeout_ms 1000,
+ * safety.safe_command flat), and each time: a fault event, state fault,
+ * the safe command (the flat) reaches the mirror (truth back to the open
+ * loop's), and `close` corrects again (truth).  No command outside
+ * [-1, 1] or non-finite ever reaches the driver.
+ * - hangs: connected, but no frame for 1.5 s: "driver silent";
+ * - restarts: a new simulator, frame ids from 0 again: a fault (silent,
+ *   or stale frames, whichever first), then every id is taken;
+ * - comes back with other dimensions (8 x 8 lenslets): its frames are
+ *   counted as bad_dimensions and never answered; a fault; the right
+ *   driver back, `close` recovers.
+ */
+static void driver_hang_restart_resize_fault_close_recovers(void **st)
+{
+	static const char *const ov[] = {"control.gain=0.5", "control.leak=0",
+					 "safety.max_bad_frames=10", NULL};
+	static const char *const other[] = {"control.gain=0.5",
+					    "control.leak=0",
+					    "safety.max_bad_frames=10",
+					    "sensor.lenslets=8", NULL};
+	e2e e;
+	proxy p;
+	void *ev;
+	char why[64];
+	double open_rms, closed_rms, safe_rms, again_rms;
+
+	(void)st;
+	start_proxied(&e, &p, ov, true);
+	ev = events_sub(&e);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	open_rms = mean_rms(&e, 3);
+	closed_rms = close_and_converge(&e);
+	assert_true(closed_rms < open_rms / CLOSED_FACTOR);
+
+	/* Hang. */
+	atomic_store(&p.paused, 1);
+	wait_fault(&e, ev, why, sizeof(why));
+	assert_string_equal(why, "driver silent");
+	atomic_store(&p.paused, 0);
+	safe_rms = truth_reaches(&e, open_rms);
+	again_rms = close_and_converge(&e);
+	print_message("hang: fault '%s', truth %.1f nm (open %.1f), closed "
+		      "again %.2f nm\n",
+		      why, safe_rms, open_rms, again_rms);
+	assert_true(fabs(safe_rms - open_rms) < 0.02 * open_rms);
+	assert_true(again_rms < open_rms / CLOSED_FACTOR);
+
+	/* Restart: ids from 0. */
+	e2e_kill_sim(&e);
+	assert_int_equal(e2e_start_sim(&e), 0);
+	wait_fault(&e, ev, why, sizeof(why));
+	safe_rms = truth_reaches(&e, open_rms);
+	again_rms = close_and_converge(&e);
+	print_message("restart: fault '%s', truth %.1f nm, closed again "
+		      "%.2f nm\n",
+		      why, safe_rms, again_rms);
+	assert_true(fabs(safe_rms - open_rms) < 0.02 * open_rms);
+	assert_true(again_rms < open_rms / CLOSED_FACTOR);
+
+	/* Other dimensions, then the right driver again. */
+	e2e_kill_sim(&e);
+	assert_int_equal(e2e_rewrite_sim_ini(&e, other), 0);
+	assert_int_equal(e2e_start_sim(&e), 0);
+	wait_fault(&e, ev, why, sizeof(why));
+	for (int k = 0; k < 100; k++) {
+		assert_int_equal(e2e_request(&e, "status"), 1);
+		if (num(&e, "result.counts.bad_dimensions") > 0) {
+			break;
+		}
+		sleep_ms(50);
+	}
+	assert_true(num(&e, "result.counts.bad_dimensions") > 0);
+	assert_state(&e, "fault");
+	print_message("other dimensions: fault '%s', %.0f frames of the wrong "
+		      "size\n",
+		      why, num(&e, "result.counts.bad_dimensions"));
+	e2e_kill_sim(&e);
+	assert_int_equal(e2e_rewrite_sim_ini(&e, ov), 0);
+	assert_int_equal(e2e_start_sim(&e), 0);
+	assert_int_equal(e2e_wait_state(&e, "fault", 5000), 0);
+	again_rms = close_and_converge(&e);
+	print_message("right driver back: closed again %.2f nm\n", again_rms);
+	assert_true(again_rms < open_rms / CLOSED_FACTOR);
+
+	zmq_close(ev);
+	assert_int_equal(atomic_load(&p.outside), 0);
+	assert_int_equal(atomic_load(&p.nonfinite), 0);
+	stop_clean(&e, &p);
+}
+
 static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(fixture_calibration_through_proxy_is_saved),
 	cmocka_unit_test(malformed_frames_counted_by_reason_loop_unaffected),
@@ -1506,6 +1607,7 @@ static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(late_reordered_duplicated_and_gap_frames_are_counted),
 	cmocka_unit_test(saturated_and_dark_sensor_counted_dark_holds_command),
 	cmocka_unit_test(sigterm_in_every_state_sends_flat_and_exits_zero),
+	cmocka_unit_test(driver_hang_restart_resize_fault_close_recovers),
 };
 
 WT_TEST_MAIN(tests)
