@@ -1599,6 +1599,213 @@ static void driver_hang_restart_resize_fault_close_recovers(void **st)
 	stop_clean(&e, &p);
 }
 
+/*
+ * Long actuator saturation: every spot moved 3 pixels right for 300 frames
+ * (a slope bias far beyond the mirror's stroke) while closed, gain 0.5, no
+ * leak.  The loop drives the mirror into its limits and holds it there:
+ * most frames have an actuator clipped, every command within [-1, 1].
+ * The bias gone, the true residual is back to the closed loop's within
+ * the 40 frames the loop takes to converge from the flat: the integrator
+ * state was clipped with the command (anti-windup, lib/wt_control.h).  An
+ * integrator that had wound up would carry about 300 frames' worth of
+ * bias and need as many frames to unwind (c <- c - g s summed: common
+ * practice).
+ */
+static void long_saturation_anti_windup_recovers_like_from_flat(void **st)
+{
+	static const char *const ov[] = {"control.gain=0.5", "control.leak=0",
+					 NULL};
+	static double rms[300];
+	e2e e;
+	proxy p;
+	sim_truth t;
+	double open_rms, closed_rms, worst = 0, clipped0, clipped, again_rms;
+
+	(void)st;
+	start_proxied(&e, &p, ov, true);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	open_rms = mean_rms(&e, 3);
+	closed_rms = close_and_converge(&e);
+	assert_int_equal(e2e_request(&e, "status"), 1);
+	clipped0 = num(&e, "result.counts.clipped_frames");
+
+	atomic_store(&p.shift_px, 3);
+	rewrite_frames(&e, &p, PIX_SHIFT, 300, rms);
+	for (int k = 0; k < 300; k++) {
+		worst = rms[k] > worst ? rms[k] : worst;
+	}
+	settle(&e, &p);
+	clipped = num(&e, "result.counts.clipped_frames") - clipped0;
+	assert_state(&e, "closed");
+	assert_true(num(&e, "result.counts.rejected_updates") == 0);
+
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	assert_int_equal(e2e_truth_skip(&e, 40, &t, 5000), 0);
+	again_rms = mean_rms(&e, 3);
+	print_message("open %.1f nm, closed %.2f nm; biased 300 frames: %.0f "
+		      "with an actuator clipped, truth up to %.1f nm; 40 "
+		      "frames after: %.2f nm\n",
+		      open_rms, closed_rms, clipped, worst, again_rms);
+	assert_true(clipped >= 250);
+	assert_true(worst > open_rms / CLOSED_FACTOR);
+	assert_true(closed_rms < open_rms / CLOSED_FACTOR);
+	assert_true(again_rms < open_rms / CLOSED_FACTOR);
+	assert_int_equal(atomic_load(&p.outside), 0);
+	assert_int_equal(atomic_load(&p.nonfinite), 0);
+	stop_clean(&e, &p);
+}
+
+/* A client of the control flood: its own REQ socket, requests until stop. */
+typedef struct flooder {
+	e2e *e;
+	pthread_t thread;
+	atomic_int *stop;
+	int words; /* cycle through the first 2 (status, get) or all 3 */
+	long sent, bad;
+} flooder;
+
+static void *flood_main(void *arg)
+{
+	static const char *const lines[3] = {"status", "get control.gain",
+					     "set control.gain 0.5"};
+	static const char *const want[3] = {"\"state\":\"closed\"",
+					    "\"value\":0.5", "\"value\":0.5"};
+	flooder *f = arg;
+	void *req = zmq_socket(f->e->ctx, ZMQ_REQ);
+	static _Thread_local char reply[E2E_REPLY_MAX];
+	int zero = 0, timeout = 10000;
+
+	zmq_setsockopt(req, ZMQ_LINGER, &zero, sizeof(zero));
+	zmq_setsockopt(req, ZMQ_RCVTIMEO, &timeout, sizeof(timeout));
+	if (zmq_connect(req, f->e->control) != 0) {
+		f->bad++;
+	}
+	while (!atomic_load(f->stop) && f->bad == 0) {
+		int k = (int)(f->sent % f->words), len;
+
+		if (zmq_send(req, lines[k], strlen(lines[k]), 0) < 0 ||
+		    (len = zmq_recv(req, reply, sizeof(reply) - 1, 0)) < 0) {
+			f->bad++;
+			break;
+		}
+		reply[len < (int)sizeof(reply) ? len : (int)sizeof(reply) - 1] =
+			'\0';
+		if (!strstr(reply, "\"ok\":true") || !strstr(reply, want[k])) {
+			f->bad++;
+		}
+		f->sent++;
+	}
+	zmq_close(req);
+	return NULL;
+}
+
+/* n frame records in a row: their ids consecutive (else -1); the
+ * receive -> send latency p99 in microseconds into *p99. */
+static int record_window(void *rec, int n, double *p99)
+{
+	static float a[4 * SLOPE_MAX];
+	static double lat[4096];
+	wt_frame_record h;
+	uint64_t prev = 0;
+
+	assert_true(n <= 4096);
+	for (int k = 0; k < n; k++) {
+		assert_int_equal(next_record(rec, &h, a, 4 * SLOPE_MAX, 5000),
+				 0);
+		if (k > 0 && h.frame_id != prev + 1) {
+			return -1;
+		}
+		prev = h.frame_id;
+		lat[k] = (double)(h.send_ns - h.recv_ns) / 1000.0;
+	}
+	/* p99: the value at rank ceil(0.99 n) (nearest rank, common
+	 * practice), by insertion sort of the window. */
+	for (int i = 1; i < n; i++) {
+		double v = lat[i];
+		int j = i;
+
+		for (; j > 0 && lat[j - 1] > v; j--) {
+			lat[j] = lat[j - 1];
+		}
+		lat[j] = v;
+	}
+	*p99 = lat[(int)ceil(0.99 * n) - 1];
+	return 0;
+}
+
+/*
+ * A control flood while closed: 8 clients, each as fast as it gets
+ * answers, 6 cycling status and get control.gain, 2 also set control.gain
+ * 0.5 (a set waits for the loop to apply it between frames).  Every
+ * reply is ok and right; the loop answers every frame meanwhile (frame
+ * records consecutive, decimation 1; no frame dropped, stale or lost to
+ * the telemetry ring; the simulator never waited past its timeout); the
+ * latency p99 with and without the flood is printed, not asserted.
+ */
+static void control_flood_loop_answers_every_frame(void **st)
+{
+	static const char *const ov[] = {"control.gain=0.5", "control.leak=0",
+					 "daemon.frame_decimation=1", NULL};
+	const int n = 400;
+	e2e e;
+	proxy p;
+	sim_truth t;
+	flooder f[8];
+	atomic_int stop = 0;
+	void *rec;
+	double quiet, flood, rms, open_rms;
+	long sent = 0, bad = 0;
+	uint64_t t0;
+	double secs;
+
+	(void)st;
+	start_proxied(&e, &p, ov, true);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	open_rms = mean_rms(&e, 3);
+	close_and_converge(&e);
+	rec = records_sub(&e);
+	sleep_ms(100);
+	assert_int_equal(record_window(rec, n, &quiet), 0);
+
+	t0 = wt_clock_ns();
+	for (int k = 0; k < 8; k++) {
+		f[k] = (flooder){.e = &e, .stop = &stop, .words = k < 2 ? 3 : 2};
+		assert_int_equal(
+			pthread_create(&f[k].thread, NULL, flood_main, &f[k]),
+			0);
+	}
+	assert_int_equal(record_window(rec, n, &flood), 0);
+	atomic_store(&stop, 1);
+	for (int k = 0; k < 8; k++) {
+		pthread_join(f[k].thread, NULL);
+		sent += f[k].sent;
+		bad += f[k].bad;
+	}
+	secs = (double)(wt_clock_ns() - t0) / 1e9;
+	zmq_close(rec);
+
+	settle(&e, &p);
+	print_message("latency p99 %.1f us quiet, %.1f us under a flood of "
+		      "%ld requests in %.1f s (%.0f per second), %ld bad "
+		      "replies\n",
+		      quiet, flood, sent, secs, (double)sent / secs, bad);
+	assert_int_equal(bad, 0);
+	assert_true(sent > 8 * 3);
+	assert_true(num(&e, "result.counts.dropped") == 0);
+	assert_true(num(&e, "result.counts.stale") == 0);
+	assert_true(num(&e, "result.counts.telemetry_dropped") == 0);
+	assert_true(num(&e, "result.frames") == (double)atomic_load(&p.frames));
+	assert_state(&e, "closed");
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	assert_int_equal(e2e_truth(&e, &t, 5000), 0);
+	assert_int_equal(t.timeouts, 0);
+	rms = mean_rms(&e, 3);
+	assert_true(rms < open_rms / CLOSED_FACTOR);
+	assert_int_equal(atomic_load(&p.bogus), 0);
+	assert_int_equal(atomic_load(&p.outside), 0);
+	stop_clean(&e, &p);
+}
+
 static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(fixture_calibration_through_proxy_is_saved),
 	cmocka_unit_test(malformed_frames_counted_by_reason_loop_unaffected),
@@ -1608,6 +1815,8 @@ static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(saturated_and_dark_sensor_counted_dark_holds_command),
 	cmocka_unit_test(sigterm_in_every_state_sends_flat_and_exits_zero),
 	cmocka_unit_test(driver_hang_restart_resize_fault_close_recovers),
+	cmocka_unit_test(long_saturation_anti_windup_recovers_like_from_flat),
+	cmocka_unit_test(control_flood_loop_answers_every_frame),
 };
 
 WT_TEST_MAIN(tests)
