@@ -118,8 +118,8 @@ int wt_centroid_frame(const wt_centroider *c, const uint16_t *frame,
  * background and threshold), since a clipped spot's centroid is biased
  * toward the clipped plateau's centre.  Returns how many windows hold such
  * a pixel (also those already invalid), or -EINVAL when c, frame or valid
- * is NULL.  Stops reading a window at its first saturated pixel; no
- * allocation.
+ * is NULL.  Stops reading a window after the row of its first saturated
+ * pixel; no allocation.
  */
 int wt_centroid_saturated(const wt_centroider *c, const uint16_t *frame,
 			  uint16_t full_scale, uint8_t *valid);

@@ -8,6 +8,12 @@
  *   sim  --frames-->  proxy  --frames + injected-->  daemon
  *   sim  <--commands--  proxy  <--commands--         daemon
  *
+ * The proxy also makes frame faults (late, duplicated, replayed out of
+ * order, id gaps, pixels saturated, dark or shifted into a slope bias),
+ * checks every command for NaN and the [-1, 1] limits, and the cases make
+ * the driver hang, restart and change dimensions, flood the control
+ * socket, and SIGTERM the daemon in every state.
+ *
  * The simulator binds e->frames and e->commands; the proxy connects to them
  * and binds e->daemon_frames and e->daemon_commands, which the daemon's own
  * INI names (e2e_setup_split).
