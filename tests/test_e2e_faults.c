@@ -1661,6 +1661,64 @@ static void long_saturation_anti_windup_recovers_like_from_flat(void **st)
 	stop_clean(&e, &p);
 }
 
+/* Subapertures of a record whose residual is exactly 0 in x and in y. */
+static int zero_residuals(const wt_frame_record *h, const float *a)
+{
+	int n = 0;
+
+	for (uint32_t k = 0; k < h->n_subaps; k++) {
+		n += a[k] == 0 && a[h->n_subaps + k] == 0;
+	}
+	return n;
+}
+
+/*
+ * With a reference measured through the sample aberration (so its slopes
+ * are not 0), an invalid subaperture - under min_flux at the pupil edge,
+ * or saturated - has a residual of exactly 0, not minus its reference
+ * (which would drive the mirror from a subaperture that measured
+ * nothing); every valid one keeps a non-zero residual (camera noise).
+ */
+static void invalid_subapertures_have_zero_residual_with_reference(void **st)
+{
+	static const char *const ov[] = {"daemon.frame_decimation=1", NULL};
+	static float a[4 * SLOPE_MAX];
+	e2e e;
+	proxy p;
+	wt_frame_record h;
+	void *rec;
+	int edge, sat = 0;
+
+	(void)st;
+	start_proxied(&e, &p, ov, true);
+	assert_int_equal(e2e_request(&e, "reference 8"), 1);
+	assert_int_equal(e2e_wait_state(&e, "open", 30000), 0);
+	rec = records_sub(&e);
+	sleep_ms(100);
+	assert_int_equal(next_record(rec, &h, a, 4 * SLOPE_MAX, 5000), 0);
+	edge = (int)h.n_invalid;
+	assert_true(edge > 0);
+	assert_int_equal(zero_residuals(&h, a), edge);
+
+	atomic_store(&p.pix_mode, PIX_SATURATE_LEFT);
+	atomic_store(&p.pix_left, 3);
+	for (int k = 0; k < 200 && !sat; k++) {
+		assert_int_equal(next_record(rec, &h, a, 4 * SLOPE_MAX, 5000),
+				 0);
+		if (h.flags & WT_FRAME_SATURATED) {
+			sat = 1;
+		}
+	}
+	zmq_close(rec);
+	print_message("%d edge subapertures invalid, %u with the left "
+		      "quarter saturated: as many zero residuals\n",
+		      edge, h.n_invalid);
+	assert_true(sat);
+	assert_true((int)h.n_invalid > edge);
+	assert_int_equal(zero_residuals(&h, a), (int)h.n_invalid);
+	stop_clean(&e, &p);
+}
+
 /* A client of the control flood: its own REQ socket, requests until stop. */
 typedef struct flooder {
 	e2e *e;
@@ -1823,6 +1881,7 @@ static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(driver_hang_restart_resize_fault_close_recovers),
 	cmocka_unit_test(long_saturation_anti_windup_recovers_like_from_flat),
 	cmocka_unit_test(control_flood_loop_answers_every_frame),
+	cmocka_unit_test(invalid_subapertures_have_zero_residual_with_reference),
 };
 
 WT_TEST_MAIN(tests)
