@@ -451,6 +451,13 @@ int main(int argc, char **argv)
 	d.s_telemetry = bind_socket(
 		d.zctx, ZMQ_PUB, "daemon.telemetry",
 		wt_config_string(d.cfg, WT_OPT_DAEMON_TELEMETRY), false);
+	{
+		/* PUB never blocks: past this queue a subscriber loses
+		 * records (ZeroMQ's send high-water mark, per subscriber). */
+		int q = (int)wt_config_int(d.cfg, WT_OPT_DAEMON_TELEMETRY_QUEUE);
+
+		zmq_setsockopt(d.s_telemetry, ZMQ_SNDHWM, &q, sizeof(q));
+	}
 	d.s_frames =
 		connect_socket(d.zctx, ZMQ_PULL, "driver.frames",
 			       wt_config_string(d.cfg, WT_OPT_DRIVER_FRAMES));

@@ -190,6 +190,10 @@
  *   "frame "  + BIN   a frame record (section 5), every
  *                     daemon.frame_decimation-th frame answered
  *
+ * PUB never waits for a subscriber: one that falls more than
+ * daemon.telemetry_queue messages behind loses messages (the frame ids of
+ * the records show the gaps); the daemon cannot count them.
+ *
  * ======================================================================
  * 3. The status object
  * ======================================================================

@@ -95,6 +95,8 @@ timeout_ms = 5000
 control = ipc://$dir/control
 telemetry = ipc://$dir/telemetry
 frame_decimation = 1
+; a loaded machine can stall the monitor for a second or more
+telemetry_queue = 200000
 status_hz = 2
 [sim]
 mode = lockstep

@@ -113,6 +113,7 @@ def main():
     rows = []
     prev = None
     gaps = disorder = 0
+    gap_at = []
     n = k = 0
     t0 = time.monotonic()
     tw = t0
@@ -131,6 +132,9 @@ def main():
         elif fid != prev + 1:
             if fid > prev:
                 gaps += fid - prev - 1
+                if len(gap_at) < 5:
+                    gap_at.append("%d missing after id %d (frame %d)"
+                                  % (fid - prev - 1, prev, n))
             else:
                 disorder += 1
         prev = fid
@@ -204,6 +208,8 @@ def main():
     print("soak: latency p99.9 per window min %.1f median %.1f max %.1f us%s"
           % (min(p999), med, max(p999),
              " (not checked)" if a.no_timing_check else ""))
+    for g in gap_at:
+        print("soak: gap: " + g)
     for f in fails:
         print("soak: FAIL " + f)
     print("soak: %s" % ("PASS" if not fails else "FAIL"))
