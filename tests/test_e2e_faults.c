@@ -803,8 +803,12 @@ static void rewrite_frames(e2e *e, proxy *p, int mode, int n, double *rms)
  */
 static void fixture_calibration_through_proxy_is_saved(void **state)
 {
-	static const char *const ov[] = {"calibration.settle=1",
-					 "calibration.average=2", NULL};
+	/* A shared machine can stall the simulator past the demo's 1 s
+	 * driver timeout, which would abort the calibration: allow 5 s
+	 * (and the simulator's own timeout above it). */
+	static const char *const ov[] = {
+		"calibration.settle=1", "calibration.average=2",
+		"driver.timeout_ms=5000", "sim.timeout_ms=10000", NULL};
 	e2e e;
 	proxy p;
 	struct stat st;
