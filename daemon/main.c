@@ -204,7 +204,7 @@ static bool daemon_answers(void *zctx, const char *endpoint)
 }
 
 static void *bind_socket(void *zctx, int type, const char *option,
-			 const char *endpoint, bool is_control)
+			 const char *endpoint, bool is_control, int sndhwm)
 {
 	int linger = 0;
 	void *s;
@@ -230,6 +230,11 @@ static void *bind_socket(void *zctx, int type, const char *option,
 		refuse("%s: %s", option, zmq_strerror(zmq_errno()));
 	}
 	zmq_setsockopt(s, ZMQ_LINGER, &linger, sizeof(linger));
+	if (sndhwm > 0) {
+		/* Before the bind: accepted connections take the options
+		 * the socket had then. */
+		zmq_setsockopt(s, ZMQ_SNDHWM, &sndhwm, sizeof(sndhwm));
+	}
 	if (zmq_bind(s, endpoint) != 0) {
 		int e = zmq_errno();
 
@@ -447,17 +452,13 @@ int main(int argc, char **argv)
 	}
 	d.s_control = bind_socket(
 		d.zctx, ZMQ_REP, "daemon.control",
-		wt_config_string(d.cfg, WT_OPT_DAEMON_CONTROL), true);
+		wt_config_string(d.cfg, WT_OPT_DAEMON_CONTROL), true, 0);
 	d.s_telemetry = bind_socket(
 		d.zctx, ZMQ_PUB, "daemon.telemetry",
-		wt_config_string(d.cfg, WT_OPT_DAEMON_TELEMETRY), false);
-	{
+		wt_config_string(d.cfg, WT_OPT_DAEMON_TELEMETRY), false,
 		/* PUB never blocks: past this queue a subscriber loses
 		 * records (ZeroMQ's send high-water mark, per subscriber). */
-		int q = (int)wt_config_int(d.cfg, WT_OPT_DAEMON_TELEMETRY_QUEUE);
-
-		zmq_setsockopt(d.s_telemetry, ZMQ_SNDHWM, &q, sizeof(q));
-	}
+		(int)wt_config_int(d.cfg, WT_OPT_DAEMON_TELEMETRY_QUEUE));
 	d.s_frames =
 		connect_socket(d.zctx, ZMQ_PULL, "driver.frames",
 			       wt_config_string(d.cfg, WT_OPT_DRIVER_FRAMES));
