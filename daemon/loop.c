@@ -77,6 +77,8 @@ struct wtd_loop {
 	bool safe_hold;
 	int max_bad;
 	int decimation;
+	uint16_t full_scale; /* sensor.full_scale: a pixel saturates here */
+	int min_valid;	     /* fewer valid subapertures: a dark frame */
 
 	/* frame ids */
 	bool have_id;
@@ -194,6 +196,13 @@ int wtd_loop_create(struct wtd *d, wt_error *err)
 			      "hold") == 0;
 	l->max_bad = (int)wt_config_int(cfg, WT_OPT_SAFETY_MAX_BAD_FRAMES);
 	l->decimation = (int)wt_config_int(cfg, WT_OPT_DAEMON_FRAME_DECIMATION);
+	l->full_scale = (uint16_t)wt_config_int(cfg, WT_OPT_SENSOR_FULL_SCALE);
+	l->min_valid = (int)ceil(
+		wt_config_double(cfg, WT_OPT_SAFETY_MIN_VALID_FRACTION) *
+		d->n_subaps);
+	if (l->min_valid < 1) {
+		l->min_valid = 1;
+	}
 	l->state = WT_STATE_OPEN;
 	atomic_store(&d->c.state, WT_STATE_OPEN);
 	return 0;
@@ -666,12 +675,43 @@ static void count_refusal(struct wtd_loop *l, int rc)
 	}
 }
 
+/*
+ * Count the frame's kind from l->valid (wt_request.h section 3): saturated
+ * subapertures (already marked invalid), and a dark frame when fewer than
+ * min_valid subapertures are valid (WT_FRAME_DARK: the closed loop holds
+ * its command).
+ * Zeroes the slopes of the invalid ones.  Returns the invalid count.
+ */
+static int classify(struct wtd_loop *l, int n_sat, uint32_t *flags)
+{
+	struct wtd *d = l->d;
+	int k, n_invalid = 0;
+
+	for (k = 0; k < d->n_subaps; k++) {
+		if (!l->valid[k]) {
+			l->slopes[k] = 0;
+			l->slopes[d->n_subaps + k] = 0;
+			n_invalid++;
+		}
+	}
+	if (n_sat > 0) {
+		*flags |= WT_FRAME_SATURATED;
+		bump(&d->c.saturated_frames, 1);
+		bump(&d->c.saturated_subaps, (unsigned long long)n_sat);
+	}
+	if (d->n_subaps - n_invalid < l->min_valid) {
+		*flags |= WT_FRAME_DARK;
+		bump(&d->c.dark_frames, 1);
+	}
+	return n_invalid;
+}
+
 /* Slopes from the frame; returns the invalid subapertures. */
 static int measure(struct wtd_loop *l, const wt_header *h, const void *payload,
 		   uint32_t *flags)
 {
 	struct wtd *d = l->d;
-	int k, n_bad = 0;
+	int k;
 
 	if (h->kind == WT_KIND_PIXELS_U16) {
 		const uint16_t *pix = payload;
@@ -680,8 +720,11 @@ static int measure(struct wtd_loop *l, const wt_header *h, const void *payload,
 			memcpy(l->pix, payload, h->payload_bytes);
 			pix = l->pix;
 		}
-		return wt_centroid_frame(l->cen, pix, l->slopes, l->flux,
-					 l->valid);
+		wt_centroid_frame(l->cen, pix, l->slopes, l->flux, l->valid);
+		return classify(l,
+				wt_centroid_saturated(l->cen, pix,
+						      l->full_scale, l->valid),
+				flags);
 	}
 	*flags |= WT_FRAME_SLOPES_IN;
 	memcpy(l->slopes, payload, sizeof(float) * (size_t)d->n_slopes);
@@ -695,10 +738,9 @@ static int measure(struct wtd_loop *l, const wt_header *h, const void *payload,
 			*sx = 0;
 			*sy = 0;
 			l->valid[k] = 0;
-			n_bad++;
 		}
 	}
-	return n_bad;
+	return classify(l, 0, flags);
 }
 
 /*
@@ -770,6 +812,9 @@ static void process(struct wtd_loop *l, const void *data, size_t len,
 	if (l->have_id && h.sequence <= l->last_id) {
 		if (l->state != WT_STATE_FAULT) {
 			bump(&d->c.stale, 1);
+			if (h.sequence == l->last_id) {
+				bump(&d->c.duplicates, 1);
+			}
 			l->stale_run++;
 			if (l->stale_run >= l->max_bad) {
 				enter_fault(l, WTD_FAULT_STALE, l->stale_run);
@@ -801,8 +846,12 @@ static void process(struct wtd_loop *l, const void *data, size_t len,
 
 	n_invalid = measure(l, &h, payload, &flags);
 	for (k = 0; k < d->n_slopes; k++) {
-		float r = l->slopes[k] - (l->ref ? l->ref[k] : 0) -
-			  (l->offset ? l->offset[k] : 0);
+		/* An invalid subaperture measured nothing: zero residual, not
+		 * minus the reference (which would push the mirror). */
+		float r = l->valid[k % d->n_subaps]
+				  ? l->slopes[k] - (l->ref ? l->ref[k] : 0) -
+					    (l->offset ? l->offset[k] : 0)
+				  : 0.0f;
 
 		l->residual[k] = r;
 		ss += (double)r * r;
@@ -834,6 +883,11 @@ static void process(struct wtd_loop *l, const void *data, size_t len,
 		break;
 	}
 	case WT_STATE_CLOSED:
+		if (flags & WT_FRAME_DARK) {
+			/* Nothing measured: no update, hold the command. */
+			cmd_from(l, l->last_cmd);
+			break;
+		}
 		rc = wt_control_step(l->ctl, l->residual, l->delta, &st);
 		if (rc == -ERANGE) {
 			bump(&d->c.rejected, 1);

@@ -184,7 +184,7 @@ static bool daemon_answers(void *zctx, const char *endpoint)
 }
 
 static void *bind_socket(struct wtd *d, int type, const char *option,
-			 const char *endpoint, bool is_control)
+			 const char *endpoint, bool is_control, int sndhwm)
 {
 	void *zctx = d->zctx;
 	bool curve = d->curve && wt_endpoint_wants_curve(endpoint);
@@ -220,6 +220,11 @@ static void *bind_socket(struct wtd *d, int type, const char *option,
 	zmq_setsockopt(s, ZMQ_LINGER, &linger, sizeof(linger));
 	if (curve && wt_curve_server(s, &d->keys, &err) < 0) {
 		refuse("%s %s: %s", option, endpoint, err.msg);
+	}
+	if (sndhwm > 0) {
+		/* Before the bind: accepted connections take the options
+		 * the socket had then. */
+		zmq_setsockopt(s, ZMQ_SNDHWM, &sndhwm, sizeof(sndhwm));
 	}
 	if (zmq_bind(s, endpoint) != 0) {
 		int e = zmq_errno();
@@ -517,10 +522,13 @@ int main(int argc, char **argv)
 	set_up_access(&d, driver_public, &have_driver_key);
 	d.s_control = bind_socket(
 		&d, ZMQ_REP, "daemon.control",
-		wt_config_string(d.cfg, WT_OPT_DAEMON_CONTROL), true);
+		wt_config_string(d.cfg, WT_OPT_DAEMON_CONTROL), true, 0);
 	d.s_telemetry = bind_socket(
 		&d, ZMQ_PUB, "daemon.telemetry",
-		wt_config_string(d.cfg, WT_OPT_DAEMON_TELEMETRY), false);
+		wt_config_string(d.cfg, WT_OPT_DAEMON_TELEMETRY), false,
+		/* PUB never blocks: past this queue a subscriber loses
+		 * records (ZeroMQ's send high-water mark, per subscriber). */
+		(int)wt_config_int(d.cfg, WT_OPT_DAEMON_TELEMETRY_QUEUE));
 	d.s_frames =
 		connect_socket(&d, ZMQ_PULL, "driver.frames",
 			       wt_config_string(d.cfg, WT_OPT_DRIVER_FRAMES),

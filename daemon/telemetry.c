@@ -43,6 +43,8 @@ static const struct watched watched[] = {
 	W(rejected, "integrator updates rejected (NaN/Inf)"),
 	W(send_failed, "commands not sent"),
 	W(tm_dropped, "telemetry records dropped (ring full)"),
+	W(saturated_frames, "frames with saturated subapertures"),
+	W(dark_frames, "dark frames (no valid subaperture)"),
 };
 #undef W
 #define N_WATCHED (sizeof(watched) / sizeof(watched[0]))
@@ -261,6 +263,14 @@ void wtd_status_json(struct wtd *d, wt_json *j, const double *sv, int n_sv)
 	wt_json_uint(j, get(&c->tm_dropped));
 	wt_json_key(j, "faults");
 	wt_json_uint(j, get(&c->faults));
+	wt_json_key(j, "duplicates");
+	wt_json_uint(j, get(&c->duplicates));
+	wt_json_key(j, "saturated_frames");
+	wt_json_uint(j, get(&c->saturated_frames));
+	wt_json_key(j, "saturated_subapertures");
+	wt_json_uint(j, get(&c->saturated_subaps));
+	wt_json_key(j, "dark_frames");
+	wt_json_uint(j, get(&c->dark_frames));
 	wt_json_object_end(j);
 
 	wt_json_key(j, "refused");

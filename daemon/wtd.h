@@ -128,7 +128,8 @@ struct wtd_image_slot {
 struct wtd_counters {
 	atomic_ullong received, answered, dropped, stale, refused, bad_dims,
 		wrong_kind, rejected, clipped_frames, send_failed, tm_dropped,
-		faults;
+		faults, duplicates, saturated_frames, saturated_subaps,
+		dark_frames;
 	atomic_ullong refused_by[WTD_N_REFUSED];
 	atomic_ullong last_frame;    /* valid when have_frame */
 	atomic_ullong last_frame_ns; /* CLOCK_MONOTONIC of its receipt */

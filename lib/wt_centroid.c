@@ -404,3 +404,30 @@ int wt_centroid_frame(const wt_centroider *c, const uint16_t *frame,
 	}
 	return n_invalid;
 }
+
+int wt_centroid_saturated(const wt_centroider *c, const uint16_t *frame,
+			  uint16_t full_scale, uint8_t *valid)
+{
+	int k, r, q, n = 0;
+
+	if (!c || !frame || !valid) {
+		return -EINVAL;
+	}
+	for (k = 0; k < c->n_valid; k++) {
+		const uint16_t *win = frame + c->start[k];
+		int hit = 0;
+
+		for (r = 0; r < c->p && !hit; r++) {
+			const uint16_t *px = win + (size_t)r * c->stride;
+
+			for (q = 0; q < c->p; q++) {
+				hit |= px[q] >= full_scale;
+			}
+		}
+		if (hit) {
+			valid[k] = 0;
+			n++;
+		}
+	}
+	return n;
+}

@@ -123,4 +123,16 @@ int wt_centroid_use_isa(wt_centroider *c, enum wt_mvm_isa isa);
 int wt_centroid_frame(const wt_centroider *c, const uint16_t *frame,
 		      float *slopes, float *flux, uint8_t *valid);
 
+/**
+ * Saturated subapertures: mark invalid (valid[k] = 0) every window holding
+ * a raw pixel at or above full_scale (the camera's largest count, before
+ * background and threshold), since a clipped spot's centroid is biased
+ * toward the clipped plateau's centre.  Returns how many windows hold such
+ * a pixel (also those already invalid), or -EINVAL when c, frame or valid
+ * is NULL.  Stops reading a window after the row of its first saturated
+ * pixel; no allocation.
+ */
+int wt_centroid_saturated(const wt_centroider *c, const uint16_t *frame,
+			  uint16_t full_scale, uint8_t *valid);
+
 #endif /* WT_CENTROID_H */

@@ -40,6 +40,30 @@
  * Every command sent is within [mirror.limit_low, mirror.limit_high] and
  * never NaN.  Every change of state is an event (section 4).
  *
+ * Frames that are not faults (counted in section 3, answered or skipped):
+ *   gap          ids jumped: answered; the missing ones count as dropped.
+ *   out of order, duplicate
+ *                an id not above the last one: skipped, unanswered
+ *                (stale; an equal id also counts as a duplicate); as many
+ *                in a row as safety.max_bad_frames make the fault above.
+ *   late         answered as any other (the daemon cannot tell a late
+ *                frame from a slow driver); no frame for driver.timeout_ms
+ *                is the "driver silent" fault.
+ *   invalid subaperture
+ *                under sensor.min_flux, a NaN/Inf slope, or saturated (a
+ *                raw pixel at or above sensor.full_scale: a clipped spot's
+ *                centroid is biased): its residual is 0, so it neither
+ *                drives the integrator nor enters a calibration.
+ *   dark frame   fewer valid subapertures than safety.min_valid_fraction
+ *                of the sensor's, never none (shutter closed, source lost,
+ *                the sensor saturated, all slopes NaN): counted; closed,
+ *                the integrator is not updated and the last command is
+ *                held: neither the leak nor a reconstruction from part of
+ *                the pupil (whose unseen actuators would drift) moves the
+ *                mirror while too little is measured; open, held and
+ *                fault answer as always.  The loop goes on at once when
+ *                light returns.
+ *
  * Request line syntax
  * -------------------
  * - At most WT_REQUEST_LINE_MAX (1024) bytes, not counting one optional
@@ -246,6 +270,10 @@
  *                     daemon.image_hz times per second (0: never), from
  *                     frames that carry pixels
  *
+ * PUB never waits for a subscriber: one that falls more than
+ * daemon.telemetry_queue messages behind loses messages (the frame ids of
+ * the records show the gaps); the daemon cannot count them.
+ *
  * ======================================================================
  * 3. The status object
  * ======================================================================
@@ -274,7 +302,16 @@
  *              "send_failed":N,  commands ZeroMQ could not take
  *              "telemetry_dropped":N, records lost because the ring was
  *                                full
- *              "faults":N},
+ *              "faults":N,
+ *              "duplicates":N,   stale frames whose id equals the last
+ *                                one (also counted in stale)
+ *              "saturated_frames":N, frames with a saturated
+ *                                subaperture (a raw pixel at or above
+ *                                sensor.full_scale)
+ *              "saturated_subapertures":N, such subapertures, summed
+ *                                over frames
+ *              "dark_frames":N}, frames with too few valid
+ *                                subapertures (safety.min_valid_fraction)
  *    "refused":{"short":N,"magic":N,"version":N,"kind":N,"dims":N,
  *               "payload":N,"length":N},   refused messages by reason
  *    "access":{"curve":BOOL,      daemon.secret_key is set
@@ -369,7 +406,9 @@
  *       56    4 f32      residual slope RMS, pixels
  *       60    4 u32      flags: bit 0 integrator update rejected (NaN/Inf),
  *                        bit 1 the driver sent slopes (flux is 0), bit 2
- *                        the command could not be sent
+ *                        the command could not be sent, bit 3 dark (too
+ *                        few valid subapertures: closed, command held),
+ *                        bit 4 a subaperture saturated
  *       64   8N f32[2N]  residual slopes s - ref - offset, pixels: the N x
  *                        slopes then the N y slopes
  *   64+8N    4N f32[N]   flux per subaperture, counts
@@ -538,6 +577,8 @@ enum wt_frame_flags {
 	WT_FRAME_REJECTED = 1u << 0,
 	WT_FRAME_SLOPES_IN = 1u << 1,
 	WT_FRAME_SEND_FAILED = 1u << 2,
+	WT_FRAME_DARK = 1u << 3,
+	WT_FRAME_SATURATED = 1u << 4,
 };
 
 /** The 64-byte header of a frame record. */

@@ -253,6 +253,11 @@ int e2e_rewrite_daemon_ini(e2e *e, const char *const *overrides)
 	return rename(tmp, e->ini);
 }
 
+int e2e_rewrite_sim_ini(e2e *e, const char *const *overrides)
+{
+	return write_ini(e, e->ini, e->frames, e->commands, overrides);
+}
+
 static pid_t spawn(const e2e *e, const char *log_name, char *const argv[])
 {
 	char log[256];

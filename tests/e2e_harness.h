@@ -66,6 +66,13 @@ int e2e_setup_split(e2e *e, const char *const *overrides);
  */
 int e2e_rewrite_daemon_ini(e2e *e, const char *const *overrides);
 
+/**
+ * Write the simulator's INI again (e->ini) with other overrides (the
+ * scenario's endpoints kept): the next e2e_start_sim() runs a different
+ * driver, e.g. one of other dimensions.
+ */
+int e2e_rewrite_sim_ini(e2e *e, const char *const *overrides);
+
 /** Start wavetrim-sim (waits until its truth stream flows). */
 int e2e_start_sim(e2e *e);
 

@@ -784,6 +784,57 @@ static void isa_variants_match_double_sums(void **state)
 	wt_grid_destroy(g);
 }
 
+/*
+ * Saturation: a window holding one pixel at or above full scale is marked
+ * invalid, the others keep the validity wt_centroid_frame gave them; the
+ * count includes windows already invalid.  Worked by hand: 2 x 2 windows,
+ * spots peaking at 3000, 3000 with its peak pixel set to 4095 (12-bit
+ * full scale, 2^12 - 1), 5000 (over it, rendered unclipped) and an empty
+ * window with one pixel at 4095.
+ */
+static void saturated_pixel_invalidates_its_window_and_is_counted(void **s0)
+{
+	const int p = 12, side = 24;
+	const double peaks[4] = {3000.0, 3000.0, 5000.0, 0.0};
+	uint16_t frame[24 * 24];
+	float slopes[8], flux[4];
+	uint8_t valid[4];
+	wt_grid *g = NULL;
+	wt_centroider *c;
+	int k;
+
+	(void)s0;
+	assert_int_equal(wt_grid_lenslets(2, 0.0, 0.5, &g, NULL), 0);
+	for (k = 0; k < 4; k++) {
+		/* centred on pixel (5, 5): the peak is the brightest pixel */
+		render_spot(frame, side, g->col[k] * p, g->row[k] * p, p, 5.0,
+			    5.0, 1.0, spot_total(1.0, peaks[k]), 0.0);
+	}
+	frame[(size_t)(g->row[1] * p + 5) * side + (size_t)(g->col[1] * p + 5)] =
+		4095;
+	frame[(size_t)(g->row[3] * p + 2) * side + (size_t)(g->col[3] * p)] =
+		4095;
+	/* the lone pixel (4095 counts) is under min_flux: invalid already */
+	c = make(g, p, 0.0f, 0.0f, 5000.0f);
+	assert_int_equal(wt_centroid_frame(c, frame, slopes, flux, valid), 1);
+	assert_int_equal(valid[3], 0);
+	assert_int_equal(wt_centroid_saturated(c, frame, 4095, valid), 3);
+	assert_int_equal(valid[0], 1);
+	assert_int_equal(valid[1], 0);
+	assert_int_equal(valid[2], 0);
+	assert_int_equal(valid[3], 0);
+	/* a higher full scale (16 bits): nothing saturates */
+	assert_int_equal(wt_centroid_frame(c, frame, slopes, flux, valid), 1);
+	assert_int_equal(wt_centroid_saturated(c, frame, 65535, valid), 0);
+	assert_int_equal(valid[1], 1);
+	assert_int_equal(valid[2], 1);
+	assert_int_equal(wt_centroid_saturated(NULL, frame, 4095, valid),
+			 -EINVAL);
+	assert_int_equal(wt_centroid_saturated(c, frame, 4095, NULL), -EINVAL);
+	wt_centroid_destroy(c);
+	wt_grid_destroy(g);
+}
+
 static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(spot_offsets_recovered_to_two_hundredths_of_a_pixel),
 	cmocka_unit_test(spot_on_the_lenslet_axis_reads_zero),
@@ -796,6 +847,7 @@ static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(min_flux_invalidates_dim_subapertures_and_counts_them),
 	cmocka_unit_test(all_zero_frame_is_invalid_without_nan),
 	cmocka_unit_test(saturated_frames_give_finite_slopes),
+	cmocka_unit_test(saturated_pixel_invalidates_its_window_and_is_counted),
 	cmocka_unit_test(flux_and_valid_outputs_may_be_null),
 	cmocka_unit_test(bad_parameters_and_levels_are_refused),
 	cmocka_unit_test(isa_variants_match_double_sums),
