@@ -25,6 +25,7 @@
 #include <zmq.h>
 
 #include "wt_clock.h"
+#include "wt_modalgain.h"
 #include "wt_recon.h"
 #include "wtd.h"
 
@@ -209,20 +210,11 @@ static int count_by_ratio(const double *sv, int n, double ratio)
 	return k;
 }
 
-/*
- * Control matrix from the interaction matrix with the modes of cfg; install
- * it.  0, or a negative code with the reason in *err.
- */
-static int build_matrix(struct wtd_ctl *ctl, const wt_config *cfg,
-			wt_error *err)
+/* The SVD of the interaction matrix, computed once per matrix. */
+static int ensure_svd(struct wtd_ctl *ctl, wt_error *err)
 {
 	struct wtd *d = ctl->d;
-	int modes_opt = (int)wt_config_int(cfg, WT_OPT_CONTROL_MODES);
-	double ratio = wt_config_double(cfg, WT_OPT_CONTROL_MIN_SV_RATIO);
-	struct wtd_mb_msg m = {.type = WTD_MB_INSTALL};
-	float *R;
-	int kept, rc;
-	double cond;
+	int rc;
 
 	if (!ctl->have_D) {
 		return wt_error_set(err, -ENOENT, "no interaction matrix");
@@ -238,6 +230,41 @@ static int build_matrix(struct wtd_ctl *ctl, const wt_config *cfg,
 		       sizeof(double) * (size_t)ctl->n_sv);
 		ctl->have_sv = true;
 	}
+	return 0;
+}
+
+/* control.mode_gains for the first n modes (missing entries are 1). */
+static void mode_gains(const wt_config *cfg, double *g, int n)
+{
+	double list[WT_CONFIG_LIST_MAX];
+	int k, len = wt_config_dlist(cfg, WT_OPT_CONTROL_MODE_GAINS, list,
+				     WT_CONFIG_LIST_MAX);
+
+	for (k = 0; k < n; k++) {
+		g[k] = k < len ? list[k] : 1.0;
+	}
+}
+
+/*
+ * Control matrix from the interaction matrix with the modes of cfg; install
+ * it.  0, or a negative code with the reason in *err.
+ */
+static int build_matrix(struct wtd_ctl *ctl, const wt_config *cfg,
+			wt_error *err)
+{
+	struct wtd *d = ctl->d;
+	int modes_opt = (int)wt_config_int(cfg, WT_OPT_CONTROL_MODES);
+	double ratio = wt_config_double(cfg, WT_OPT_CONTROL_MIN_SV_RATIO);
+	struct wtd_mb_msg m = {.type = WTD_MB_INSTALL};
+	float *R;
+	double *mg;
+	int kept, rc;
+	double cond;
+
+	rc = ensure_svd(ctl, err);
+	if (rc < 0) {
+		return rc;
+	}
 	kept = wt_recon_modes(ctl->svd, modes_opt, ratio);
 	if (kept < 1) {
 		return wt_error_set(err, -ERANGE,
@@ -247,10 +274,15 @@ static int build_matrix(struct wtd_ctl *ctl, const wt_config *cfg,
 				    ratio);
 	}
 	R = malloc(sizeof(float) * (size_t)d->n_act * (size_t)d->n_slopes);
-	if (!R) {
+	mg = malloc(sizeof(double) * (size_t)kept);
+	if (!R || !mg) {
+		free(R);
+		free(mg);
 		return wt_error_set(err, -ENOMEM, "out of memory");
 	}
-	rc = wt_recon_pinv_float(ctl->svd, kept, NULL, R);
+	mode_gains(cfg, mg, kept);
+	rc = wt_recon_pinv_float(ctl->svd, kept, mg, R);
+	free(mg);
 	if (rc < 0) {
 		free(R);
 		return wt_error_set(err, rc, "control matrix: %s",
@@ -698,6 +730,7 @@ static int apply_option(struct wtd_ctl *ctl, const wt_config *cfg,
 		break;
 	case WT_OPT_CONTROL_MODES:
 	case WT_OPT_CONTROL_MIN_SV_RATIO:
+	case WT_OPT_CONTROL_MODE_GAINS:
 		if (!ctl->have_D) {
 			return 0; /* used at the next calibration */
 		}
@@ -1011,6 +1044,370 @@ static void do_load(struct wtd_ctl *ctl, const char *path, struct outcome *o)
 	result_end(ctl, &j, o);
 }
 
+/* --- recording ------------------------------------------------------------ */
+
+static void do_record(struct wtd_ctl *ctl, const wt_request *req,
+		      struct outcome *o)
+{
+	struct wtd *d = ctl->d;
+	wt_error err;
+	wt_json j;
+	char *ini;
+	int rc;
+
+	if (req->stop) {
+		if (wtd_record_stop(d, &err) < 0) {
+			fail(o, "%s", err.msg);
+			return;
+		}
+		result_begin(ctl, &j);
+		wtd_record_json(d, &j);
+		result_end(ctl, &j, o);
+		return;
+	}
+	ini = config_text(d->cfg);
+	rc = wtd_record_start(d, req->path, req->frames, ini, &err);
+	free(ini);
+	if (rc < 0) {
+		fail(o, "%s", err.msg);
+		return;
+	}
+	result_begin(ctl, &j);
+	wt_json_object_begin(&j);
+	wt_json_key(&j, "file");
+	wt_json_string(&j, req->path);
+	wt_json_key(&j, "frames");
+	wt_json_int(&j, req->frames);
+	wt_json_object_end(&j);
+	result_end(ctl, &j, o);
+}
+
+/* --- automatic gain choice ------------------------------------------------ */
+
+/* Change one live option from this thread, as `set` does. */
+static int set_live(struct wtd_ctl *ctl, wt_opt_id id, const char *value,
+		    wt_error *err)
+{
+	struct wtd *d = ctl->d;
+	const wt_option *opt = wt_option_get(id);
+	char key[128];
+	int rc;
+
+	snprintf(key, sizeof(key), "%s.%s", opt->section, opt->key);
+	wt_config_copy(ctl->scratch, d->cfg);
+	rc = wt_config_set(ctl->scratch, key, value, err);
+	if (rc < 0) {
+		return rc;
+	}
+	rc = apply_option(ctl, ctl->scratch, opt, err);
+	if (rc < 0) {
+		return rc;
+	}
+	wt_config_copy(d->cfg, ctl->scratch);
+	publish_slow(ctl);
+	post_event(ctl, "config", body_config, opt);
+	wt_log_info(d->log, "autogain: %s = %s", key, value);
+	return 0;
+}
+
+/* A capture of n frames with its buffers. */
+static int capture(struct wtd_ctl *ctl, struct wtd_capture *c, long n,
+		   wt_error *err)
+{
+	struct wtd *d = ctl->d;
+	double rate;
+	uint64_t timeout;
+
+	memset(c, 0, sizeof(*c));
+	c->want = n;
+	c->slopes = malloc(sizeof(float) * (size_t)n * (size_t)d->n_slopes);
+	c->commands = malloc(sizeof(float) * (size_t)n * (size_t)d->n_act);
+	c->ids = malloc(sizeof(uint64_t) * (size_t)n);
+	c->states = malloc(sizeof(uint16_t) * (size_t)n);
+	if (!c->slopes || !c->commands || !c->ids || !c->states) {
+		return wt_error_set(err, -ENOMEM, "out of memory");
+	}
+	pthread_mutex_lock(&d->period_mu);
+	rate = d->period.valid ? d->period.frame_rate_hz : 0;
+	pthread_mutex_unlock(&d->period_mu);
+	/* Four times the time the frames should take, and 5 s more. */
+	timeout = 5 * WT_NS_PER_S;
+	if (rate >= 1) {
+		timeout += (uint64_t)(4e9 * (double)n / rate);
+	} else {
+		timeout += 30 * WT_NS_PER_S;
+	}
+	return wtd_capture(d, c, timeout, err);
+}
+
+static void capture_free(struct wtd_capture *c)
+{
+	free(c->slopes);
+	free(c->commands);
+	free(c->ids);
+	free(c->states);
+}
+
+/*
+ * Modal record of a capture: y[t * k + i] = u_i . s_t (slope space,
+ * pixels) and, when pol, the pseudo-open-loop y - sigma_i a_i(t - delay)
+ * with a_i = v_i . (c - flat), for t from delay on (n - delay rows).
+ */
+static void modal_record(struct wtd_ctl *ctl, const struct wtd_capture *c,
+			 int k, int delay, bool pol, double *y)
+{
+	struct wtd *d = ctl->d;
+	const double *u = wt_svd_u(ctl->svd), *vt = wt_svd_vt(ctl->svd);
+	const double *sv = wt_svd_values(ctl->svd);
+	int count = wt_svd_count(ctl->svd);
+	long t, rows = c->got - delay;
+	int i, j;
+
+	for (t = 0; t < rows; t++) {
+		const float *s = c->slopes + (size_t)(t + delay) * d->n_slopes;
+		const float *cm = c->commands + (size_t)t * d->n_act;
+
+		for (i = 0; i < k; i++) {
+			double acc = 0, a = 0;
+
+			for (j = 0; j < d->n_slopes; j++) {
+				acc += u[(size_t)j * count + i] * s[j];
+			}
+			if (pol) {
+				for (j = 0; j < d->n_act; j++) {
+					a += vt[(size_t)i * d->n_act + j] *
+					     (cm[j] - ctl->flat[j]);
+				}
+				acc -= sv[i] * a;
+			}
+			y[t * k + i] = acc;
+		}
+	}
+}
+
+/* Sum over the modes of the variance (mean removed) of a modal record. */
+static double modal_variance(const double *y, long rows, int k)
+{
+	double total = 0;
+	long t;
+	int i;
+
+	for (i = 0; i < k; i++) {
+		double m = 0, v = 0;
+
+		for (t = 0; t < rows; t++) {
+			m += y[t * k + i];
+		}
+		m /= (double)rows;
+		for (t = 0; t < rows; t++) {
+			v += (y[t * k + i] - m) * (y[t * k + i] - m);
+		}
+		total += v / (double)rows;
+	}
+	return total;
+}
+
+/* Residual variance of the controlled modes over a new closed-loop
+ * capture of n frames; NAN when not closed or the capture failed. */
+static double measure_closed(struct wtd_ctl *ctl, long n, int k,
+			     double *scratch)
+{
+	struct wtd_capture c;
+	wt_error err;
+	double v = NAN;
+	long t;
+
+	if (capture(ctl, &c, n, &err) == 0) {
+		for (t = 0; t < c.got && c.states[t] == WT_STATE_CLOSED; t++) {
+		}
+		if (t == c.got) {
+			modal_record(ctl, &c, k, 0, false, scratch);
+			v = modal_variance(scratch, c.got, k);
+		}
+	}
+	capture_free(&c);
+	return v;
+}
+
+static void json_number_or_null(wt_json *j, double v)
+{
+	if (isfinite(v)) {
+		wt_json_double_prec(j, v, 6);
+	} else {
+		wt_json_null(j);
+	}
+}
+
+static void do_autogain(struct wtd_ctl *ctl, const wt_request *req,
+			struct outcome *o)
+{
+	struct wtd *d = ctl->d;
+	int delay = (int)wt_config_int(d->cfg, WT_OPT_CONTROL_LOOP_DELAY);
+	double g0 = wt_config_double(d->cfg, WT_OPT_CONTROL_GAIN);
+	int k = ctl->modes, seg = 256, i, state;
+	long rows, t;
+	struct wtd_capture c = {0};
+	wt_modalgain_params p;
+	wt_modalgain_result *res = NULL;
+	double *y = NULL, *psd = NULL, *cur = NULL, *mg = NULL;
+	double pred_cur = 0, pred_opt = 0, measured = NAN, achieved = NAN;
+	double g_new = g0;
+	bool closed = true, applied = false;
+	char *text = NULL;
+	wt_error err;
+	wt_json j;
+
+	if (!ctl->R || ctl->R_stale || ensure_svd(ctl, &err) < 0 || k < 1) {
+		fail(o, "no control matrix made from an interaction matrix: "
+			"calibrate or load a calibration first");
+		return;
+	}
+	if (req->apply && k > WT_CONFIG_LIST_MAX) {
+		fail(o, "%d modes: control.mode_gains holds at most %d", k,
+		     WT_CONFIG_LIST_MAX);
+		return;
+	}
+	if (capture(ctl, &c, req->frames, &err) < 0) {
+		fail(o, "autogain: %s", err.msg);
+		goto out;
+	}
+	state = c.states[0];
+	for (t = 0; t < c.got; t++) {
+		if (c.states[t] != c.states[0]) {
+			fail(o, "autogain: the loop changed state during the "
+				"record");
+			goto out;
+		}
+		closed = closed && c.states[t] == WT_STATE_CLOSED;
+	}
+	if (state != WT_STATE_OPEN && state != WT_STATE_CLOSED &&
+	    state != WT_STATE_HELD) {
+		fail(o, "autogain: the loop was %s", wt_state_name(state));
+		goto out;
+	}
+	rows = c.got - delay;
+	while (seg > 8 && seg > rows / 4) {
+		seg /= 2;
+	}
+	y = malloc(sizeof(double) * (size_t)c.got * (size_t)k);
+	psd = malloc(sizeof(double) * (size_t)seg);
+	res = malloc(sizeof(*res) * (size_t)k);
+	cur = malloc(sizeof(double) * (size_t)k);
+	mg = malloc(sizeof(double) * (size_t)k);
+	if (!y || !psd || !res || !cur || !mg) {
+		fail(o, "out of memory");
+		goto out;
+	}
+	if (closed) {
+		/* What the loop achieved in the record, as measured. */
+		modal_record(ctl, &c, k, 0, false, y);
+		measured = modal_variance(y, c.got, k);
+	}
+	modal_record(ctl, &c, k, delay, true, y);
+	wt_modalgain_params_default(&p);
+	p.delay = delay;
+	p.segment = seg;
+	if (wt_modalgain_optimize(y, rows, k, NULL, &p, res, &err) < 0) {
+		fail(o, "autogain: %s", err.msg);
+		goto out;
+	}
+	mode_gains(d->cfg, mg, k);
+	for (i = 0; i < k; i++) {
+		cur[i] = g0 * mg[i];
+		pred_opt += res[i].predicted;
+		if (wt_modalgain_psd(y + i, rows, k, seg, psd, &err) < 0) {
+			fail(o, "autogain: %s", err.msg);
+			goto out;
+		}
+		pred_cur += wt_modalgain_predict(psd, seg, res[i].noise_var,
+						 cur[i], delay);
+	}
+	if (req->apply) {
+		size_t cap = 24 * (size_t)k + 1, len = 0;
+		double gmax = 0;
+		char num[32];
+
+		for (i = 0; i < k; i++) {
+			gmax = res[i].gain > gmax ? res[i].gain : gmax;
+		}
+		/* mode_gains are factors of control.gain, at most 2. */
+		if (g0 <= 0 || gmax > 2 * g0) {
+			g_new = gmax;
+		}
+		text = malloc(cap);
+		if (!text) {
+			fail(o, "out of memory");
+			goto out;
+		}
+		text[0] = '\0';
+		for (i = 0; i < k; i++) {
+			mg[i] = res[i].gain / g_new;
+			len += (size_t)snprintf(text + len, cap - len, "%s%.4f",
+						i ? " " : "", mg[i]);
+		}
+		snprintf(num, sizeof(num), "%.6g", g_new);
+		if (set_live(ctl, WT_OPT_CONTROL_MODE_GAINS, text, &err) < 0 ||
+		    set_live(ctl, WT_OPT_CONTROL_GAIN, num, &err) < 0) {
+			fail(o, "autogain: applying: %s", err.msg);
+			goto out;
+		}
+		applied = true;
+		achieved = measure_closed(ctl, req->frames, k, y);
+	}
+
+	result_begin(ctl, &j);
+	wt_json_object_begin(&j);
+	wt_json_key(&j, "frames");
+	wt_json_int(&j, c.got);
+	wt_json_key(&j, "modes");
+	wt_json_int(&j, k);
+	wt_json_key(&j, "delay");
+	wt_json_int(&j, delay);
+	wt_json_key(&j, "state");
+	wt_json_string(&j, wt_state_name(state));
+	wt_json_key(&j, "loop_gains");
+	wt_json_array_begin(&j);
+	for (i = 0; i < k; i++) {
+		wt_json_double_prec(&j, res[i].gain, 4);
+	}
+	wt_json_array_end(&j);
+	wt_json_key(&j, "current_loop_gains");
+	wt_json_double_array(&j, cur, (size_t)k, 4);
+	wt_json_key(&j, "predicted");
+	wt_json_object_begin(&j);
+	wt_json_key(&j, "current");
+	json_number_or_null(&j, pred_cur);
+	wt_json_key(&j, "optimised");
+	json_number_or_null(&j, pred_opt);
+	wt_json_object_end(&j);
+	wt_json_key(&j, "measured");
+	json_number_or_null(&j, measured);
+	wt_json_key(&j, "applied");
+	wt_json_bool(&j, applied);
+	if (applied) {
+		wt_json_key(&j, "gain");
+		wt_json_double_prec(&j, g_new, 6);
+		wt_json_key(&j, "mode_gains");
+		wt_json_double_array(&j, mg, (size_t)k, 4);
+	}
+	wt_json_key(&j, "achieved");
+	json_number_or_null(&j, achieved);
+	wt_json_object_end(&j);
+	result_end(ctl, &j, o);
+	wt_log_notice(d->log,
+		      "autogain: %d modes, predicted %.4g (current gains) -> "
+		      "%.4g, measured %.4g, achieved %.4g",
+		      k, pred_cur, pred_opt, measured, achieved);
+out:
+	capture_free(&c);
+	free(y);
+	free(psd);
+	free(res);
+	free(cur);
+	free(mg);
+	free(text);
+}
+
 /* One request: the reply text into ctl->reply; returns its length. */
 static int handle(struct wtd_ctl *ctl, const char *line, size_t len)
 {
@@ -1079,6 +1476,12 @@ static int handle(struct wtd_ctl *ctl, const char *line, size_t len)
 		break;
 	case WT_REQ_HELP:
 		do_help(ctl, &o);
+		break;
+	case WT_REQ_RECORD:
+		do_record(ctl, req, &o);
+		break;
+	case WT_REQ_AUTOGAIN:
+		do_autogain(ctl, req, &o);
 		break;
 	default:
 		fail(&o, "not implemented");

@@ -151,6 +151,47 @@
  * shutdown               RESULT: "stopping"; then the daemon sends the
  *                        flat and exits 0, as on SIGTERM.
  * help                   RESULT: [{"word":W,"usage":U,"help":H}, ...].
+ * record N FILE          Record the next N frames answered (every frame,
+ *                        not the decimated stream; N 1 .. 100000000) into
+ *                        the HDF5 file FILE (replaced; layout in
+ *                        lib/wt_recording.h).  The file is created before
+ *                        the reply, so a bad name is refused here; the
+ *                        frames are written by a thread of their own, so
+ *                        a slow or full disk never delays the loop: frames
+ *                        the writer cannot keep up with are counted as
+ *                        lost, and a failed write ends the recording with
+ *                        a "recording_failed" event and the reason in
+ *                        status.recording.error.  Refused while another
+ *                        recording runs.  RESULT: {"file":FILE,"frames":N}.
+ * record stop            End the recording in progress; the file keeps
+ *                        the frames so far.  RESULT: the status object's
+ *                        "recording" value.
+ * autogain FRAMES [apply]
+ *                        Choose per-mode gains (modal gain optimisation,
+ *                        lib/wt_modalgain.h) from the residual slopes and
+ *                        commands of the next FRAMES frames (64 .. 65536;
+ *                        open, closed or held), projected on the installed
+ *                        control matrix's modes; in closed loop the
+ *                        pseudo-open-loop record y_i(t) - sigma_i
+ *                        a_i(t - d) is used, d = control.loop_delay.  The
+ *                        control thread waits for the frames (other
+ *                        requests wait meanwhile); the loop never does.
+ *                        With apply the gains are installed as
+ *                        control.gain and control.mode_gains and a second
+ *                        record of FRAMES frames measures the result.
+ *                        Needs a control matrix from an interaction matrix.
+ *                        RESULT: {"frames":F,"modes":K,"delay":d,
+ *                        "state":STATE during the record,
+ *                        "loop_gains":[g_i ...] chosen per mode,
+ *                        "current_loop_gains":[...],
+ *                        "predicted":{"current":V,"optimised":V},
+ *                        "measured":V|null (closed loop: sum over the
+ *                        modes of the residual's variance in the record),
+ *                        "applied":BOOL,"gain":G,"mode_gains":[...] (the
+ *                        options written, when applied),
+ *                        "achieved":V|null (measured after applying)};
+ *                        every V is a residual variance summed over the
+ *                        controlled modes, pixels^2 (slope space).
  *
  * ======================================================================
  * 2. Telemetry: PUB on [daemon] telemetry
@@ -206,7 +247,15 @@
  *                   "modes":N,"recommended":N,"condition":NUMBER|null,
  *                   "singular_values":[NUMBER, ...]},  control reply only
  *    "calibrating":null|{"kind":"reference"|"matrix",
- *                        "frames_done":N,"frames_total":N}}
+ *                        "frames_done":N,"frames_total":N},
+ *    "recording":null|{"file":TEXT,   the last recording (null: none yet)
+ *                      "state":"recording"|"finishing"|"done"|"stopped"|
+ *                              "failed",
+ *                      "frames_requested":N,"frames_taken":N (handed to
+ *                      the writer),"frames":N (written to the file),
+ *                      "frames_lost":N (the writer was behind),
+ *                      "telemetry_dropped":N (ring full meanwhile),
+ *                      "error":TEXT|null}}
  *
  * ======================================================================
  * 4. Events
@@ -242,6 +291,10 @@
  *                           could not be built, count 1)
  *   "config"                "key":"SECTION.KEY","value":VALUE
  *   "saved", "loaded"       "file":TEXT
+ *   "recording_done", "recording_failed"
+ *                           "file":TEXT,"frames":N (written),
+ *                           "frames_lost":N,"telemetry_dropped":N, and
+ *                           for a failure "error":TEXT
  *   "stopping"
  *
  * ======================================================================
@@ -321,6 +374,8 @@ enum wt_req_word {
 	WT_REQ_LOAD,
 	WT_REQ_SHUTDOWN,
 	WT_REQ_HELP,
+	WT_REQ_RECORD,
+	WT_REQ_AUTOGAIN,
 	WT_REQ_COUNT
 };
 
@@ -333,6 +388,8 @@ typedef struct wt_request {
 	char path[WT_REQUEST_LINE_MAX + 1];  /**< save, load: the file */
 	long frames;  /**< reference: FRAMES, 0 = the default */
 	bool capture; /**< flat capture */
+	bool stop;    /**< record stop */
+	bool apply;   /**< autogain ... apply */
 } wt_request;
 
 /**

@@ -43,6 +43,7 @@ static const char *const ref_names[] = {
 	"status", "ping",      "open",	    "close",	"hold",
 	"flat",	  "reference", "calibrate", "set",	"get",
 	"config", "save",      "load",	    "shutdown", "help",
+	"record", "autogain",
 };
 _Static_assert(sizeof(ref_names) / sizeof(ref_names[0]) == WT_REQ_COUNT,
 	       "one name per word of wt_request.h");
@@ -112,6 +113,24 @@ static int ref_split(const uint8_t *s, size_t len, struct ref_req *r)
 	return r->n > 16 ? -EINVAL : 0;
 }
 
+/* A whole number in [lo, hi]: 0 or -EINVAL. */
+static int ref_count(const char *s, long lo, long hi, long *out)
+{
+	long v = 0;
+
+	if (!s[0]) {
+		return -EINVAL;
+	}
+	for (const char *p = s; *p; p++) {
+		if (*p < '0' || *p > '9') {
+			return -EINVAL;
+		}
+		v = v > 100000000 ? v : v * 10 + (*p - '0');
+	}
+	*out = v;
+	return v < lo || v > hi ? -EINVAL : 0;
+}
+
 /* The word rules; 0 or -EINVAL, with r->word, frames, capture set. */
 static int ref_words(struct ref_req *r)
 {
@@ -176,6 +195,20 @@ static int ref_words(struct ref_req *r)
 	case WT_REQ_SAVE:
 	case WT_REQ_LOAD:
 		return args == 1 && r->w[1][0] ? 0 : -EINVAL;
+	case WT_REQ_RECORD:
+		if (args == 1) {
+			return strcmp(r->w[1], "stop") ? -EINVAL : 0;
+		}
+		if (args != 2 || !r->w[2][0]) {
+			return -EINVAL;
+		}
+		return ref_count(r->w[1], 1, 100000000, &r->frames);
+	case WT_REQ_AUTOGAIN:
+		if (args < 1 || args > 2 ||
+		    (args == 2 && strcmp(r->w[2], "apply"))) {
+			return -EINVAL;
+		}
+		return ref_count(r->w[1], 64, 65536, &r->frames);
 	default:
 		return args == 0 ? 0 : -EINVAL;
 	}
