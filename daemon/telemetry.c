@@ -865,12 +865,9 @@ void wtd_record_json(struct wtd *d, wt_json *j)
 	pthread_mutex_unlock(&r->mu);
 }
 
-int wtd_capture(struct wtd *d, struct wtd_capture *c, uint64_t timeout_ns,
-		wt_error *err)
+int wtd_capture_start(struct wtd *d, struct wtd_capture *c, wt_error *err)
 {
 	struct wtd_rec *r = d->tm->rec;
-	uint64_t t0 = wt_clock_ns();
-	bool done = false;
 
 	pthread_mutex_lock(&r->mu);
 	if (r->cap) {
@@ -881,24 +878,31 @@ int wtd_capture(struct wtd *d, struct wtd_capture *c, uint64_t timeout_ns,
 	r->cap = c;
 	atomic_fetch_add(&d->want_arrays, 1);
 	pthread_mutex_unlock(&r->mu);
-	while (!done) {
-		wt_clock_sleep_ns(WT_NS_PER_MS);
-		pthread_mutex_lock(&r->mu);
-		done = r->cap != c;
-		if (!done && (wt_clock_ns() - t0 > timeout_ns ||
-			      atomic_load(&d->stop))) {
-			r->cap = NULL;
-			atomic_fetch_sub(&d->want_arrays, 1);
-			pthread_mutex_unlock(&r->mu);
-			return wt_error_set(err, -ETIMEDOUT,
-					    "only %ld of %ld frames came in "
-					    "%.1f s",
-					    c->got, c->want,
-					    (double)timeout_ns / 1e9);
-		}
-		pthread_mutex_unlock(&r->mu);
-	}
 	return 0;
+}
+
+long wtd_capture_done(struct wtd *d, struct wtd_capture *c, bool *full)
+{
+	struct wtd_rec *r = d->tm->rec;
+	long got;
+
+	pthread_mutex_lock(&r->mu);
+	*full = r->cap != c;
+	got = c->got;
+	pthread_mutex_unlock(&r->mu);
+	return got;
+}
+
+void wtd_capture_cancel(struct wtd *d, struct wtd_capture *c)
+{
+	struct wtd_rec *r = d->tm->rec;
+
+	pthread_mutex_lock(&r->mu);
+	if (r->cap == c) {
+		r->cap = NULL;
+		atomic_fetch_sub(&d->want_arrays, 1);
+	}
+	pthread_mutex_unlock(&r->mu);
 }
 
 static void on_frame(struct wtd *d, const struct wtd_slot *s)

@@ -274,10 +274,13 @@ int wtd_record_start(struct wtd *d, const char *path, long long frames,
 int wtd_record_stop(struct wtd *d, wt_error *err);
 /** The status object's "recording" value (null before the first). */
 void wtd_record_json(struct wtd *d, wt_json *j);
-/** Fill c (c->want frames, buffers allocated by the caller) from the next
- * frames the loop answers; waits at most timeout_ns.  Control thread.
- * -EBUSY when a capture runs, -ETIMEDOUT. */
-int wtd_capture(struct wtd *d, struct wtd_capture *c, uint64_t timeout_ns,
-		wt_error *err);
+/** Start filling c (c->want frames, buffers allocated by the caller) from
+ * the next frames the loop answers.  Control thread.  -EBUSY when a
+ * capture runs.  c must stay valid until full or cancelled. */
+int wtd_capture_start(struct wtd *d, struct wtd_capture *c, wt_error *err);
+/** Frames in c so far; *full when all c->want have come. */
+long wtd_capture_done(struct wtd *d, struct wtd_capture *c, bool *full);
+/** Stop filling c (nothing happens when it is already full). */
+void wtd_capture_cancel(struct wtd *d, struct wtd_capture *c);
 
 #endif /* WTD_H */

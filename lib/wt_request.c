@@ -68,7 +68,8 @@ static const struct word_def words[WT_REQ_COUNT] = {
 	[WT_REQ_HELP] = {"help", 0, 0, "help", "this list"},
 	[WT_REQ_RECORD] = {"record", 1, 2, "record N FILE | record stop",
 			   "record the next N frames to an HDF5 file"},
-	[WT_REQ_AUTOGAIN] = {"autogain", 1, 2, "autogain FRAMES [apply]",
+	[WT_REQ_AUTOGAIN] = {"autogain", 1, 2,
+			     "autogain FRAMES [apply] | autogain status",
 			     "choose per-mode gains from FRAMES frames "
 			     "(apply: install them)"},
 };
@@ -410,6 +411,10 @@ int wt_request_parse(const char *line, size_t len, wt_request *req,
 		}
 		break;
 	case WT_REQ_AUTOGAIN:
+		if (nargs == 1 && strcmp(word[1], "status") == 0) {
+			req->status = true;
+			break;
+		}
 		rc = parse_count("FRAMES", word[1], 64, 65536, &req->frames,
 				 err);
 		if (rc < 0) {

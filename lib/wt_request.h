@@ -171,27 +171,35 @@
  *                        lib/wt_modalgain.h) from the residual slopes and
  *                        commands of the next FRAMES frames (64 .. 65536;
  *                        open, closed or held), projected on the installed
- *                        control matrix's modes; in closed loop the
- *                        pseudo-open-loop record y_i(t) - sigma_i
- *                        a_i(t - d) is used, d = control.loop_delay.  The
- *                        control thread waits for the frames (other
- *                        requests wait meanwhile); the loop never does.
- *                        With apply the gains are installed as
- *                        control.gain and control.mode_gains and a second
- *                        record of FRAMES frames measures the result.
- *                        Needs a control matrix from an interaction matrix.
- *                        RESULT: {"frames":F,"modes":K,"delay":d,
- *                        "state":STATE during the record,
- *                        "loop_gains":[g_i ...] chosen per mode,
- *                        "current_loop_gains":[...],
+ *                        control matrix's modes (u_i . s, slope space); in
+ *                        closed loop from the pseudo-open-loop record
+ *                        y_i(t) - sigma_i a_i(t - d), a_i = v_i . (c -
+ *                        flat), d = control.loop_delay.  It runs in the
+ *                        background: the reply comes at once, the outcome
+ *                        is an "autogain" event and `autogain status`.
+ *                        With apply the chosen loop gains g_i are
+ *                        installed as control.gain G and control.mode_gains
+ *                        g_i / G (G stays unless a factor would exceed 2),
+ *                        and FRAMES more frames measure the result.  Needs
+ *                        a control matrix made from an interaction matrix;
+ *                        refused while one runs.  RESULT: as for status.
+ * autogain status        RESULT: {"stage":"none"|"recording"|"measuring"|
+ *                        "done"|"failed","frames":F,"frames_done":N,
+ *                        "error":TEXT (failed only), and once optimised:
+ *                        "modes":K,"delay":d,"state":STATE during the
+ *                        record,"loop_gains":[g_i ...] chosen,
+ *                        "current_loop_gains":[...] before,
  *                        "predicted":{"current":V,"optimised":V},
- *                        "measured":V|null (closed loop: sum over the
- *                        modes of the residual's variance in the record),
- *                        "applied":BOOL,"gain":G,"mode_gains":[...] (the
- *                        options written, when applied),
- *                        "achieved":V|null (measured after applying)};
- *                        every V is a residual variance summed over the
- *                        controlled modes, pixels^2 (slope space).
+ *                        "measured":V|null (closed loop: the residual in
+ *                        the record),"applied":BOOL,"gain":G,
+ *                        "mode_gains":[...] (when applied),
+ *                        "achieved":V|null (measured after applying),
+ *                        "noise":V (the measurement noise, estimated from
+ *                        the top of each mode's spectrum)}; every V is a
+ *                        variance summed over the controlled modes,
+ *                        pixels^2 (slope space); measured and achieved
+ *                        are var(y_i) - noise, the residual without the
+ *                        noise of its measurement, as predicted.
  *
  * ======================================================================
  * 2. Telemetry: PUB on [daemon] telemetry
@@ -291,6 +299,8 @@
  *                           could not be built, count 1)
  *   "config"                "key":"SECTION.KEY","value":VALUE
  *   "saved", "loaded"       "file":TEXT
+ *   "autogain"              the members of `autogain status`, when done
+ *                           or failed
  *   "recording_done", "recording_failed"
  *                           "file":TEXT,"frames":N (written),
  *                           "frames_lost":N,"telemetry_dropped":N, and
@@ -390,6 +400,7 @@ typedef struct wt_request {
 	bool capture; /**< flat capture */
 	bool stop;    /**< record stop */
 	bool apply;   /**< autogain ... apply */
+	bool status;  /**< autogain status */
 } wt_request;
 
 /**

@@ -130,6 +130,9 @@ static void parses_record_and_autogain(void **state)
 	assert_true(req.apply);
 	assert_int_equal(parse("autogain 64", &req, &err), 0);
 	assert_false(req.apply);
+	assert_false(req.status);
+	assert_int_equal(parse("autogain status", &req, &err), 0);
+	assert_true(req.status);
 	refused("record", "usage: record N FILE");
 	refused("record 10", "usage");
 	refused("record 0 /tmp/x.h5", "N");

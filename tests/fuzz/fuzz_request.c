@@ -204,6 +204,9 @@ static int ref_words(struct ref_req *r)
 		}
 		return ref_count(r->w[1], 1, 100000000, &r->frames);
 	case WT_REQ_AUTOGAIN:
+		if (args == 1 && !strcmp(r->w[1], "status")) {
+			return 0;
+		}
 		if (args < 1 || args > 2 ||
 		    (args == 2 && strcmp(r->w[2], "apply"))) {
 			return -EINVAL;
