@@ -285,12 +285,68 @@ static void closed_loop_recording_python_reads_it(void **state)
 	stop_clean(&e);
 }
 
+/*
+ * The sweep tool against the simulator and the daemon: a table row per
+ * gain with a finite residual, and an SVG plot that is well-formed XML
+ * (Python's xml.etree parses it) with both charts drawn.
+ */
+static void sweep_tool_prints_table_and_svg(void **state)
+{
+	e2e e;
+	char svg[256], check[1024];
+	char *argv[] = {WT_SWEEP_BIN, "-c",  e.ini, "--truth", e.truth, "-n",
+			"64",	      "-s",  "10",  "-o",      svg,	"0.2",
+			"0.5",	      NULL};
+	char *py[] = {PYTHON, "-c", check, NULL};
+	e2e_run_result r;
+	double g, rms, sd;
+	int n, rows = 0;
+	const char *p;
+
+	(void)state;
+	start_loaded(&e, turbulent);
+	argv[2] = e.ini;
+	argv[4] = e.truth;
+	snprintf(svg, sizeof(svg), "%s/sweep.svg", e.dir);
+	assert_int_equal(e2e_run(argv, 120000, &r), 0);
+	print_message("%s%s", r.out, r.err);
+	assert_int_equal(r.status, 0);
+	assert_non_null(strstr(r.out, "gain"));
+	for (p = strchr(r.out, '\n'); p && *p; p = strchr(p + 1, '\n')) {
+		if (sscanf(p + 1, "%lf %lf %lf %d", &g, &rms, &sd, &n) == 4) {
+			assert_true(rms > 0 && isfinite(rms));
+			assert_int_equal(n, 64);
+			rows++;
+		}
+	}
+	assert_int_equal(rows, 2);
+	assert_non_null(strstr(r.out, "best gain"));
+	snprintf(check, sizeof(check),
+		 "import sys, xml.etree.ElementTree as E\n"
+		 "r = E.parse('%s').getroot()\n"
+		 "ns = '{http://www.w3.org/2000/svg}'\n"
+		 "assert r.tag == ns + 'svg', r.tag\n"
+		 "t = ' '.join(x.text or '' for x in r.iter(ns + 'text'))\n"
+		 "assert 'Residual vs gain' in t and 'power spectrum' in t, t\n"
+		 "assert 'gain 0.2' in t and 'gain 0.5' in t, t\n"
+		 "n = sum(1 for x in r.iter() if x.tag in (ns + 'line', "
+		 "ns + 'polyline', ns + 'path'))\n"
+		 "assert n > 20, n\n"
+		 "print('svg ok:', n, 'line elements')\n",
+		 svg);
+	assert_int_equal(e2e_run(py, 60000, &r), 0);
+	print_message("%s%s", r.out, r.err);
+	assert_int_equal(r.status, 0);
+	stop_clean(&e);
+}
+
 static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(fixture_calibration_for_gain_tests),
 	cmocka_unit_test(autogain_is_no_worse_than_best_scalar_gain),
 	cmocka_unit_test(autogain_refusals),
 	cmocka_unit_test(autogain_from_open_loop_reports_without_applying),
 	cmocka_unit_test(closed_loop_recording_python_reads_it),
+	cmocka_unit_test(sweep_tool_prints_table_and_svg),
 };
 
 WT_TEST_MAIN(tests)
