@@ -26,6 +26,7 @@
 
 #include "wt_clock.h"
 #include "wt_offset.h"
+#include "wt_modalgain.h"
 #include "wt_recon.h"
 #include "wtd.h"
 
@@ -65,6 +66,7 @@ struct wtd_ctl {
 	int offset_noll[WTD_OFFSETS_MAX];
 	double offset_nm[WTD_OFFSETS_MAX];
 	float *offset; /* installed in the loop, or NULL */
+	struct wtd_ag *ag; /* automatic gain choice */
 };
 
 /* Sections whose options wavetrimd reads (the others are the simulator's). */
@@ -253,25 +255,19 @@ static int ensure_svd(struct wtd_ctl *ctl, wt_error *err)
 }
 
 /*
- * The gain of each of the `kept` modes from control.mode_gains (new array):
- * entry i for mode i, the last entry repeated for the modes past the list,
- * all 1 when the list is empty.  NULL when out of memory.
+ * The gain of each of the first n modes from control.mode_gains: entry i
+ * for mode i, the last entry repeated for the modes past the list, all 1
+ * when the list is empty.
  */
-static double *mode_gains(const wt_config *cfg, int kept)
+static void mode_gains(const wt_config *cfg, double *g, int n)
 {
-	double *g = malloc(sizeof(double) * (size_t)(kept > 0 ? kept : 1));
 	double list[WT_CONFIG_LIST_MAX];
-	int n = wt_config_dlist(cfg, WT_OPT_CONTROL_MODE_GAINS, list,
-				WT_CONFIG_LIST_MAX);
-	int i;
+	int len = wt_config_dlist(cfg, WT_OPT_CONTROL_MODE_GAINS, list,
+				  WT_CONFIG_LIST_MAX);
 
-	if (!g) {
-		return NULL;
+	for (int i = 0; i < n; i++) {
+		g[i] = len > 0 ? list[i < len ? i : len - 1] : 1.0;
 	}
-	for (i = 0; i < kept; i++) {
-		g[i] = n > 0 ? list[i < n ? i : n - 1] : 1.0;
-	}
-	return g;
 }
 
 /*
@@ -286,7 +282,7 @@ static int build_matrix(struct wtd_ctl *ctl, const wt_config *cfg,
 	double ratio = wt_config_double(cfg, WT_OPT_CONTROL_MIN_SV_RATIO);
 	struct wtd_mb_msg m = {.type = WTD_MB_INSTALL};
 	float *R;
-	double *gains;
+	double *mg;
 	int kept, rc;
 	double cond;
 
@@ -303,14 +299,15 @@ static int build_matrix(struct wtd_ctl *ctl, const wt_config *cfg,
 				    ratio);
 	}
 	R = malloc(sizeof(float) * (size_t)d->n_act * (size_t)d->n_slopes);
-	gains = mode_gains(cfg, kept);
-	if (!R || !gains) {
+	mg = malloc(sizeof(double) * (size_t)kept);
+	if (!R || !mg) {
 		free(R);
-		free(gains);
+		free(mg);
 		return wt_error_set(err, -ENOMEM, "out of memory");
 	}
-	rc = wt_recon_pinv_float(ctl->svd, kept, gains, R);
-	free(gains);
+	mode_gains(cfg, mg, kept);
+	rc = wt_recon_pinv_float(ctl->svd, kept, mg, R);
+	free(mg);
 	if (rc < 0) {
 		free(R);
 		return wt_error_set(err, rc, "control matrix: %s",
@@ -1547,6 +1544,521 @@ out:
 	free(changed);
 }
 
+/* --- recording ------------------------------------------------------------ */
+
+static void do_record(struct wtd_ctl *ctl, const wt_request *req,
+		      struct outcome *o)
+{
+	struct wtd *d = ctl->d;
+	wt_error err;
+	wt_json j;
+	char *ini;
+	int rc;
+
+	if (req->stop) {
+		if (wtd_record_stop(d, &err) < 0) {
+			fail(o, "%s", err.msg);
+			return;
+		}
+		result_begin(ctl, &j);
+		wtd_record_json(d, &j);
+		result_end(ctl, &j, o);
+		return;
+	}
+	ini = config_text(d->cfg);
+	rc = wtd_record_start(d, req->path, req->frames, ini, &err);
+	free(ini);
+	if (rc < 0) {
+		fail(o, "%s", err.msg);
+		return;
+	}
+	result_begin(ctl, &j);
+	wt_json_object_begin(&j);
+	wt_json_key(&j, "file");
+	wt_json_string(&j, req->path);
+	wt_json_key(&j, "frames");
+	wt_json_int(&j, req->frames);
+	wt_json_object_end(&j);
+	result_end(ctl, &j, o);
+}
+
+/* --- automatic gain choice ------------------------------------------------ */
+
+/*
+ * `autogain` runs in steps in this thread, between requests (the loop never
+ * waits, and neither does a client): capture FRAMES frames, optimise, and
+ * with apply install the gains and capture FRAMES more to measure them.
+ * The outcome is the "autogain" event and `autogain status`.
+ */
+enum ag_stage { AG_IDLE, AG_BEFORE, AG_AFTER, AG_DONE, AG_FAILED };
+
+static const char *const ag_stage_names[] = {
+	[AG_IDLE] = "none",	    [AG_BEFORE] = "recording",
+	[AG_AFTER] = "measuring", [AG_DONE] = "done",
+	[AG_FAILED] = "failed",
+};
+
+struct wtd_ag {
+	int stage;
+	bool apply, applied;
+	long frames;
+	uint64_t deadline;
+	struct wtd_capture c;
+	int k, delay, state;
+	wt_modalgain_result *res;
+	double *cur, *mg, *y, *psd;
+	double pred_cur, pred_opt, measured, achieved, gain;
+	double noise; /* sum of the modes' noise variances */
+	char error[WT_ERROR_MAX];
+};
+
+/* Change one live option from this thread, as `set` does. */
+static int set_live(struct wtd_ctl *ctl, wt_opt_id id, const char *value,
+		    wt_error *err)
+{
+	struct wtd *d = ctl->d;
+	const wt_option *opt = wt_option_get(id);
+	char key[128];
+	int rc;
+
+	snprintf(key, sizeof(key), "%s.%s", opt->section, opt->key);
+	wt_config_copy(ctl->scratch, d->cfg);
+	rc = wt_config_set(ctl->scratch, key, value, err);
+	if (rc < 0) {
+		return rc;
+	}
+	rc = apply_option(ctl, ctl->scratch, opt, err);
+	if (rc < 0) {
+		return rc;
+	}
+	wt_config_copy(d->cfg, ctl->scratch);
+	publish_slow(ctl);
+	post_event(ctl, "config", body_config, opt);
+	wt_log_info(d->log, "autogain: %s = %s", key, value);
+	return 0;
+}
+
+static void ag_free(struct wtd_ag *a)
+{
+	free(a->c.slopes);
+	free(a->c.commands);
+	free(a->c.ids);
+	free(a->c.states);
+	free(a->res);
+	free(a->cur);
+	free(a->mg);
+	free(a->y);
+	free(a->psd);
+	memset(a, 0, sizeof(*a));
+}
+
+/* Start a capture of a->frames frames with a deadline. */
+static int ag_capture(struct wtd_ctl *ctl, struct wtd_ag *a, wt_error *err)
+{
+	struct wtd *d = ctl->d;
+	double rate;
+
+	pthread_mutex_lock(&d->period_mu);
+	rate = d->period.valid ? d->period.frame_rate_hz : 0;
+	pthread_mutex_unlock(&d->period_mu);
+	/* Four times the time the frames should take, and 10 s more. */
+	a->deadline = wt_clock_ns() + 10 * WT_NS_PER_S +
+		      (rate >= 1 ? (uint64_t)(4e9 * (double)a->frames / rate)
+				 : 60 * WT_NS_PER_S);
+	return wtd_capture_start(d, &a->c, err);
+}
+
+/*
+ * Modal record of a capture: y[t * k + i] = u_i . s_t (slope space,
+ * pixels) and, when pol, the pseudo-open-loop y - sigma_i a_i(t - delay)
+ * with a_i = v_i . (c - flat), for t from delay on (got - delay rows).
+ */
+static void modal_record(struct wtd_ctl *ctl, const struct wtd_capture *c,
+			 int k, int delay, bool pol, double *y)
+{
+	struct wtd *d = ctl->d;
+	const double *u = wt_svd_u(ctl->svd), *vt = wt_svd_vt(ctl->svd);
+	const double *sv = wt_svd_values(ctl->svd);
+	int count = wt_svd_count(ctl->svd);
+	long t, rows = c->got - delay;
+	int i, j;
+
+	for (t = 0; t < rows; t++) {
+		const float *s = c->slopes + (size_t)(t + delay) * d->n_slopes;
+		const float *cm = c->commands + (size_t)t * d->n_act;
+
+		for (i = 0; i < k; i++) {
+			double acc = 0, am = 0;
+
+			for (j = 0; j < d->n_slopes; j++) {
+				acc += u[(size_t)j * count + i] * s[j];
+			}
+			if (pol) {
+				for (j = 0; j < d->n_act; j++) {
+					am += vt[(size_t)i * d->n_act + j] *
+					      (cm[j] - ctl->flat[j]);
+				}
+				acc -= sv[i] * am;
+			}
+			y[t * k + i] = acc;
+		}
+	}
+}
+
+/* Sum over the modes of the variance (mean removed) of a modal record. */
+static double modal_variance(const double *y, long rows, int k)
+{
+	double total = 0;
+	long t;
+	int i;
+
+	for (i = 0; i < k; i++) {
+		double m = 0, v = 0;
+
+		for (t = 0; t < rows; t++) {
+			m += y[t * k + i];
+		}
+		m /= (double)rows;
+		for (t = 0; t < rows; t++) {
+			v += (y[t * k + i] - m) * (y[t * k + i] - m);
+		}
+		total += v / (double)rows;
+	}
+	return total;
+}
+
+static void json_number_or_null(wt_json *j, double v)
+{
+	if (isfinite(v)) {
+		wt_json_double_prec(j, v, 6);
+	} else {
+		wt_json_null(j);
+	}
+}
+
+/* The members of the autogain outcome (event and `autogain status`). */
+static void body_autogain(struct wtd_ctl *ctl, wt_json *j, const void *arg)
+{
+	struct wtd_ag *a = ctl->ag;
+	bool have = a->stage == AG_DONE || (a->stage == AG_AFTER && a->res);
+
+	(void)arg;
+	wt_json_key(j, "stage");
+	wt_json_string(j, ag_stage_names[a->stage]);
+	wt_json_key(j, "frames");
+	wt_json_int(j, a->frames);
+	wt_json_key(j, "frames_done");
+	wt_json_int(j, a->c.got);
+	if (a->stage == AG_FAILED) {
+		wt_json_key(j, "error");
+		wt_json_string(j, a->error);
+	}
+	if (!have) {
+		return;
+	}
+	wt_json_key(j, "modes");
+	wt_json_int(j, a->k);
+	wt_json_key(j, "delay");
+	wt_json_int(j, a->delay);
+	wt_json_key(j, "state");
+	wt_json_string(j, wt_state_name(a->state));
+	wt_json_key(j, "loop_gains");
+	wt_json_array_begin(j);
+	for (int i = 0; i < a->k; i++) {
+		wt_json_double_prec(j, a->res[i].gain, 4);
+	}
+	wt_json_array_end(j);
+	wt_json_key(j, "current_loop_gains");
+	wt_json_double_array(j, a->cur, (size_t)a->k, 4);
+	wt_json_key(j, "predicted");
+	wt_json_object_begin(j);
+	wt_json_key(j, "current");
+	json_number_or_null(j, a->pred_cur);
+	wt_json_key(j, "optimised");
+	json_number_or_null(j, a->pred_opt);
+	wt_json_object_end(j);
+	wt_json_key(j, "measured");
+	json_number_or_null(j, a->measured);
+	wt_json_key(j, "applied");
+	wt_json_bool(j, a->applied);
+	if (a->applied) {
+		wt_json_key(j, "gain");
+		wt_json_double_prec(j, a->gain, 6);
+		wt_json_key(j, "mode_gains");
+		wt_json_double_array(j, a->mg, (size_t)a->k, 4);
+	}
+	wt_json_key(j, "achieved");
+	json_number_or_null(j, a->achieved);
+	wt_json_key(j, "noise");
+	json_number_or_null(j, a->noise);
+}
+
+static void ag_fail(struct wtd_ctl *ctl, const char *fmt, ...)
+	__attribute__((format(printf, 2, 3)));
+
+static void ag_fail(struct wtd_ctl *ctl, const char *fmt, ...)
+{
+	struct wtd_ag *a = ctl->ag;
+	va_list ap;
+
+	wtd_capture_cancel(ctl->d, &a->c);
+	va_start(ap, fmt);
+	vsnprintf(a->error, sizeof(a->error), fmt, ap);
+	va_end(ap);
+	a->stage = AG_FAILED;
+	wt_log_err(ctl->d->log, "autogain: %s", a->error);
+	post_event(ctl, "autogain", body_autogain, NULL);
+}
+
+/* The first record is in: optimise; 0 or -1 (failed, reported). */
+static int ag_optimise(struct wtd_ctl *ctl)
+{
+	struct wtd *d = ctl->d;
+	struct wtd_ag *a = ctl->ag;
+	const struct wtd_capture *c = &a->c;
+	int seg = 256, i;
+	long rows, t;
+	bool closed = true;
+	wt_modalgain_params p;
+	wt_error err;
+	double g0 = wt_config_double(d->cfg, WT_OPT_CONTROL_GAIN);
+
+	a->state = c->states[0];
+	for (t = 0; t < c->got; t++) {
+		if (c->states[t] != c->states[0]) {
+			ag_fail(ctl, "the loop changed state during the "
+				     "record");
+			return -1;
+		}
+		closed = closed && c->states[t] == WT_STATE_CLOSED;
+	}
+	if (a->state != WT_STATE_OPEN && a->state != WT_STATE_CLOSED &&
+	    a->state != WT_STATE_HELD) {
+		ag_fail(ctl, "the loop was %s", wt_state_name(a->state));
+		return -1;
+	}
+	if (!ctl->R || ensure_svd(ctl, &err) < 0) {
+		ag_fail(ctl, "the control matrix went away");
+		return -1;
+	}
+	rows = c->got - a->delay;
+	while (seg > WT_MODALGAIN_MIN_SEGMENT && seg > rows / 4) {
+		seg /= 2;
+	}
+	a->psd = malloc(sizeof(double) * (size_t)seg);
+	if (!a->psd) {
+		ag_fail(ctl, "out of memory");
+		return -1;
+	}
+	a->measured = NAN;
+	if (closed) {
+		/* What the loop achieved in the record, as measured. */
+		modal_record(ctl, c, a->k, 0, false, a->y);
+		a->measured = modal_variance(a->y, c->got, a->k);
+	}
+	modal_record(ctl, c, a->k, a->delay, true, a->y);
+	wt_modalgain_params_default(&p);
+	p.delay = a->delay;
+	p.segment = seg;
+	if (wt_modalgain_optimize(a->y, rows, a->k, NULL, &p, a->res, &err) <
+	    0) {
+		ag_fail(ctl, "%s", err.msg);
+		return -1;
+	}
+	mode_gains(d->cfg, a->mg, a->k);
+	a->pred_cur = a->pred_opt = 0;
+	a->noise = 0;
+	for (i = 0; i < a->k; i++) {
+		a->noise += a->res[i].noise_var;
+	}
+	/* y = r + n with r independent of the current n (d >= 1): the
+	 * residual is var(y) - noise_var, comparable with J. */
+	a->measured -= a->noise;
+	for (i = 0; i < a->k; i++) {
+		a->cur[i] = g0 * a->mg[i];
+		a->pred_opt += a->res[i].predicted;
+		if (wt_modalgain_psd(a->y + i, rows, a->k, seg, a->psd, &err) <
+		    0) {
+			ag_fail(ctl, "%s", err.msg);
+			return -1;
+		}
+		a->pred_cur += wt_modalgain_predict(a->psd, seg,
+						    a->res[i].noise_var,
+						    a->cur[i], a->delay);
+	}
+	return 0;
+}
+
+/* Install the chosen gains; 0 or -1 (failed, reported). */
+static int ag_apply(struct wtd_ctl *ctl)
+{
+	struct wtd *d = ctl->d;
+	struct wtd_ag *a = ctl->ag;
+	double g0 = wt_config_double(d->cfg, WT_OPT_CONTROL_GAIN), gmax = 0;
+	size_t cap = 24 * (size_t)a->k + 1, len = 0;
+	char num[32], *text = malloc(cap);
+	wt_error err;
+	int i, rc;
+
+	if (!text) {
+		ag_fail(ctl, "out of memory");
+		return -1;
+	}
+	for (i = 0; i < a->k; i++) {
+		gmax = a->res[i].gain > gmax ? a->res[i].gain : gmax;
+	}
+	/* control.mode_gains are factors of control.gain, at most 2. */
+	a->gain = g0 <= 0 || gmax > 2 * g0 ? gmax : g0;
+	text[0] = '\0';
+	for (i = 0; i < a->k; i++) {
+		a->mg[i] = a->res[i].gain / a->gain;
+		len += (size_t)snprintf(text + len, cap - len, "%s%.4f",
+					i ? " " : "", a->mg[i]);
+	}
+	snprintf(num, sizeof(num), "%.6g", a->gain);
+	rc = set_live(ctl, WT_OPT_CONTROL_MODE_GAINS, text, &err);
+	if (rc == 0) {
+		rc = set_live(ctl, WT_OPT_CONTROL_GAIN, num, &err);
+	}
+	free(text);
+	if (rc < 0) {
+		ag_fail(ctl, "applying: %s", err.msg);
+		return -1;
+	}
+	a->applied = true;
+	return 0;
+}
+
+static void ag_done(struct wtd_ctl *ctl)
+{
+	struct wtd_ag *a = ctl->ag;
+
+	a->stage = AG_DONE;
+	wt_log_notice(ctl->d->log,
+		      "autogain: %d modes, predicted %.4g (current gains) -> "
+		      "%.4g, measured %.4g, achieved %.4g",
+		      a->k, a->pred_cur, a->pred_opt, a->measured,
+		      a->achieved);
+	post_event(ctl, "autogain", body_autogain, NULL);
+}
+
+/* One step of a running autogain (every turn of the control thread). */
+static void autogain_step(struct wtd_ctl *ctl)
+{
+	struct wtd_ag *a = ctl->ag;
+	wt_error err;
+	bool full;
+	long t;
+
+	if (a->stage != AG_BEFORE && a->stage != AG_AFTER) {
+		return;
+	}
+	wtd_capture_done(ctl->d, &a->c, &full);
+	if (!full) {
+		if (wt_clock_ns() > a->deadline) {
+			ag_fail(ctl, "only %ld of %ld frames came in time",
+				a->c.got, a->c.want);
+		}
+		return;
+	}
+	if (a->stage == AG_AFTER) {
+		a->achieved = NAN;
+		for (t = 0; t < a->c.got &&
+			    a->c.states[t] == WT_STATE_CLOSED;
+		     t++) {
+		}
+		if (t == a->c.got) {
+			modal_record(ctl, &a->c, a->k, 0, false, a->y);
+			a->achieved = modal_variance(a->y, a->c.got, a->k) -
+				      a->noise;
+		}
+		ag_done(ctl);
+		return;
+	}
+	if (ag_optimise(ctl) < 0) {
+		return;
+	}
+	a->achieved = NAN;
+	if (!a->apply) {
+		ag_done(ctl);
+		return;
+	}
+	if (ag_apply(ctl) < 0) {
+		return;
+	}
+	a->stage = AG_AFTER;
+	if (ag_capture(ctl, a, &err) < 0) {
+		ag_fail(ctl, "%s", err.msg);
+	}
+}
+
+static void do_autogain(struct wtd_ctl *ctl, const wt_request *req,
+			struct outcome *o)
+{
+	struct wtd *d = ctl->d;
+	struct wtd_ag *a = ctl->ag;
+	size_t n = (size_t)req->frames;
+	wt_error err;
+	wt_json j;
+
+	if (req->status) {
+		result_begin(ctl, &j);
+		wt_json_object_begin(&j);
+		body_autogain(ctl, &j, NULL);
+		wt_json_object_end(&j);
+		result_end(ctl, &j, o);
+		return;
+	}
+	if (a->stage == AG_BEFORE || a->stage == AG_AFTER) {
+		fail(o, "an autogain is in progress (autogain status)");
+		return;
+	}
+	if (!ctl->R || ctl->R_stale || ensure_svd(ctl, &err) < 0 ||
+	    ctl->modes < 1) {
+		fail(o, "no control matrix made from an interaction matrix: "
+			"calibrate or load a calibration first");
+		return;
+	}
+	if (req->apply && ctl->modes > WT_CONFIG_LIST_MAX) {
+		fail(o, "%d modes: control.mode_gains holds at most %d",
+		     ctl->modes, WT_CONFIG_LIST_MAX);
+		return;
+	}
+	ag_free(a);
+	a->k = ctl->modes;
+	a->delay = (int)wt_config_int(d->cfg, WT_OPT_CONTROL_LOOP_DELAY);
+	a->frames = req->frames;
+	a->apply = req->apply;
+	a->c.want = req->frames;
+	a->c.slopes = malloc(sizeof(float) * n * (size_t)d->n_slopes);
+	a->c.commands = malloc(sizeof(float) * n * (size_t)d->n_act);
+	a->c.ids = malloc(sizeof(uint64_t) * n);
+	a->c.states = malloc(sizeof(uint16_t) * n);
+	a->y = malloc(sizeof(double) * n * (size_t)a->k);
+	a->res = malloc(sizeof(*a->res) * (size_t)a->k);
+	a->cur = malloc(sizeof(double) * (size_t)a->k);
+	a->mg = malloc(sizeof(double) * (size_t)a->k);
+	if (!a->c.slopes || !a->c.commands || !a->c.ids || !a->c.states ||
+	    !a->y || !a->res || !a->cur || !a->mg) {
+		ag_free(a);
+		fail(o, "out of memory for %ld frames", req->frames);
+		return;
+	}
+	if (ag_capture(ctl, a, &err) < 0) {
+		ag_free(a);
+		fail(o, "%s", err.msg);
+		return;
+	}
+	a->stage = AG_BEFORE;
+	result_begin(ctl, &j);
+	wt_json_object_begin(&j);
+	body_autogain(ctl, &j, NULL);
+	wt_json_key(&j, "apply");
+	wt_json_bool(&j, a->apply);
+	wt_json_object_end(&j);
+	result_end(ctl, &j, o);
+}
+
 /* One request: the reply text into ctl->reply; returns its length. */
 static int handle(struct wtd_ctl *ctl, const char *line, size_t len,
 		  bool writer)
@@ -1631,6 +2143,12 @@ static int handle(struct wtd_ctl *ctl, const char *line, size_t len,
 	case WT_REQ_SHAPE:
 		do_shape(ctl, req, &o);
 		break;
+	case WT_REQ_RECORD:
+		do_record(ctl, req, &o);
+		break;
+	case WT_REQ_AUTOGAIN:
+		do_autogain(ctl, req, &o);
+		break;
 	default:
 		fail(&o, "not implemented");
 		break;
@@ -1666,6 +2184,7 @@ void *wtd_control_main(void *arg)
 				      d->config_path ? d->config_path : "?");
 			do_reload(ctl, &ro);
 		}
+		autogain_step(ctl);
 		rc = zmq_poll(&item, 1, 20);
 		if (rc < 0) {
 			if (zmq_errno() == ETERM) {
@@ -1718,6 +2237,8 @@ void *wtd_control_main(void *arg)
 			atomic_store(&d->stop, true);
 		}
 	}
+	/* The telemetry thread must not fill a capture that goes away. */
+	wtd_capture_cancel(d, &ctl->ag->c);
 	zmq_close(d->s_control);
 	d->s_control = NULL;
 	return NULL;
@@ -1751,7 +2272,8 @@ int wtd_control_create(struct wtd *d, wt_calibration *initial,
 	ctl->norms = calloc((size_t)d->n_act, sizeof(double));
 	ctl->ref = calloc((size_t)d->n_slopes, sizeof(float));
 	ctl->flat = calloc((size_t)d->n_act, sizeof(float));
-	if (!ctl->result || !ctl->reply || !ctl->D || !ctl->sv || !ctl->norms ||
+	ctl->ag = calloc(1, sizeof(*ctl->ag));
+	if (!ctl->ag || !ctl->result || !ctl->reply || !ctl->D || !ctl->sv || !ctl->norms ||
 	    !ctl->ref || !ctl->flat) {
 		return wt_error_set(err, -ENOMEM,
 				    "out of memory for a %d x %d "
@@ -1790,6 +2312,10 @@ void wtd_control_destroy(struct wtd *d)
 	free(ctl->ref);
 	free(ctl->flat);
 	free(ctl->offset);
+	if (ctl->ag) {
+		ag_free(ctl->ag);
+		free(ctl->ag);
+	}
 	free(ctl);
 	d->ctl = NULL;
 }

@@ -922,7 +922,14 @@ static void process(struct wtd_loop *l, const void *data, size_t len,
 		bump(&d->c.tm_dropped, 1);
 	} else {
 		s->type = WTD_SLOT_FRAME;
-		s->has_arrays = l->answered % (uint64_t)l->decimation == 0;
+		s->has_arrays =
+			(l->answered % (uint64_t)l->decimation == 0
+				 ? WTD_ARRAYS_PUBLISH
+				 : 0) |
+			(atomic_load_explicit(&d->want_arrays,
+					      memory_order_relaxed) > 0
+				 ? WTD_ARRAYS_RECORD
+				 : 0);
 		memcpy(s->fr.magic, WT_FRAME_MAGIC, 4);
 		s->fr.version = WT_FRAME_VERSION;
 		s->fr.state = (uint16_t)l->state;

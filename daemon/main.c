@@ -39,6 +39,7 @@
 #include "wt_config.h"
 #include "wt_geometry.h"
 #include "wt_store.h"
+#include "wt_recording.h"
 #include "wtd.h"
 
 /* The only global mutable state of the program, as signals need it. */
@@ -413,6 +414,8 @@ int main(int argc, char **argv)
 	char driver_public[WT_KEY_TEXT];
 	bool have_driver_key;
 
+	/* Before any HDF5 call: see wt_recording_process_init(). */
+	wt_recording_process_init();
 	/* First of all, so that a signal during start-up stops us cleanly
 	 * too (no SA_RESTART: blocking calls return EINTR and look at the
 	 * flag). */

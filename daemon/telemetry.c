@@ -19,6 +19,7 @@
 
 #include "wt_clock.h"
 #include "wt_image.h"
+#include "wt_recording.h"
 #include "wtd.h"
 
 /* Latencies kept per period for the median (the maximum sees them all). */
@@ -64,7 +65,12 @@ struct wtd_tm {
 	size_t msg_cap;
 	uint8_t *img; /* image message */
 	size_t img_cap;
+	struct wtd_rec *rec; /* recordings and captures */
 };
+
+struct wtd_rec;
+static int rec_create(struct wtd *d, wt_error *err);
+static void rec_destroy(struct wtd_rec *r);
 
 static const char *const why_names[] = {
 	[WTD_WHY_REQUEST] = "request",
@@ -122,6 +128,7 @@ static int image_ring_create(struct wtd *d, wt_error *err)
 int wtd_telemetry_create(struct wtd *d, wt_error *err)
 {
 	struct wtd_tm *t = calloc(1, sizeof(*t));
+	int rc;
 
 	if (!t) {
 		return wt_error_set(err, -ENOMEM, "out of memory");
@@ -137,7 +144,8 @@ int wtd_telemetry_create(struct wtd *d, wt_error *err)
 	if (!t->lat || !t->json || !t->msg) {
 		return wt_error_set(err, -ENOMEM, "out of memory");
 	}
-	return image_ring_create(d, err);
+	rc = image_ring_create(d, err);
+	return rc < 0 ? rc : rec_create(d, err);
 }
 
 void wtd_telemetry_destroy(struct wtd *d)
@@ -151,6 +159,7 @@ void wtd_telemetry_destroy(struct wtd *d)
 	free(t->json);
 	free(t->msg);
 	free(t->img);
+	rec_destroy(t->rec);
 	free(t);
 	d->tm = NULL;
 	wt_ring_destroy(d->image_ring);
@@ -349,6 +358,8 @@ void wtd_status_json(struct wtd *d, wt_json *j, const double *sv, int n_sv)
 	}
 	wt_json_key(j, "offsets");
 	wtd_offsets_json(j, s.n_offsets, s.offset_noll, s.offset_nm);
+	wt_json_key(j, "recording");
+	wtd_record_json(d, j);
 	wt_json_object_end(j);
 }
 
@@ -538,6 +549,446 @@ static void publish_event(struct wtd *d, const struct wtd_event *e)
 	}
 }
 
+/* --- recordings and captures ---------------------------------------------- */
+
+/*
+ * A recording: the telemetry thread copies every frame record (with its
+ * arrays) into buffers of REC_CHUNK records and queues each full one for
+ * the writer thread, which appends it to the HDF5 file (lib/wt_recording.h)
+ * and hands it back.  Neither the loop nor the telemetry thread ever waits
+ * for the disk: when the writer falls behind and no buffer is free, the
+ * frame is counted as lost to the recording and nothing else is affected.
+ * When an append fails (disk full), the recording ends at once as
+ * "failed", with an event and the reason in the status.
+ */
+#define REC_CHUNK  128
+#define REC_CHUNKS 32
+
+enum rec_state {
+	REC_NONE,
+	REC_RUNNING,
+	REC_DONE,
+	REC_STOPPED,
+	REC_FAILED,
+};
+
+static const char *const rec_state_names[] = {
+	[REC_NONE] = "none",	   [REC_RUNNING] = "recording",
+	[REC_DONE] = "done",	   [REC_STOPPED] = "stopped",
+	[REC_FAILED] = "failed",
+};
+
+struct rec_buf {
+	int n;
+	uint8_t *data; /* REC_CHUNK x stride */
+};
+
+struct wtd_rec {
+	pthread_mutex_t mu;
+	pthread_cond_t cv;
+	pthread_t thread;
+	bool have_thread, quit;
+	size_t stride; /* bytes of one frame record with arrays */
+	struct rec_buf buf[REC_CHUNKS];
+	int full[REC_CHUNKS], n_full, full_head; /* queue for the writer */
+	int free_list[REC_CHUNKS], n_free;
+	int cur; /* buffer being filled, -1: none */
+	/* the recording */
+	int state;
+	bool finishing;	  /* the last buffer is queued */
+	bool arrays_held; /* it counts in d->want_arrays */
+	bool stop_asked;
+	wt_recording *file;
+	char path[WT_REQUEST_LINE_MAX + 1];
+	char error[WT_ERROR_MAX];
+	long long wanted, seen, taken, written, lost;
+	unsigned long long tm_dropped0, tm_dropped;
+	/* a capture in progress, or NULL */
+	struct wtd_capture *cap;
+};
+
+static void arrays_release(struct wtd *d, struct wtd_rec *r)
+{
+	if (r->arrays_held) {
+		atomic_fetch_sub(&d->want_arrays, 1);
+		r->arrays_held = false;
+	}
+}
+
+/* Queue the buffer being filled (under mu). */
+static void rec_queue_cur(struct wtd_rec *r)
+{
+	if (r->cur >= 0 && r->buf[r->cur].n > 0) {
+		r->full[(r->full_head + r->n_full) % REC_CHUNKS] = r->cur;
+		r->n_full++;
+	} else if (r->cur >= 0) {
+		r->free_list[r->n_free++] = r->cur;
+	}
+	r->cur = -1;
+}
+
+/* End the frames' flow into the recording (under mu). */
+static void rec_finish(struct wtd *d, struct wtd_rec *r)
+{
+	rec_queue_cur(r);
+	r->finishing = true;
+	r->tm_dropped = get(&d->c.tm_dropped) - r->tm_dropped0;
+	arrays_release(d, r);
+	pthread_cond_signal(&r->cv);
+}
+
+/* The telemetry thread: one frame record for the recording/capture. */
+static void rec_on_frame(struct wtd *d, const struct wtd_slot *s)
+{
+	struct wtd_rec *r = d->tm->rec;
+	const float *a = (const float *)(s + 1);
+	struct wtd_capture *c;
+
+	pthread_mutex_lock(&r->mu);
+	c = r->cap;
+	if (c && (s->has_arrays & WTD_ARRAYS_RECORD) && c->got < c->want) {
+		size_t k = (size_t)c->got;
+
+		memcpy(c->slopes + k * (size_t)d->n_slopes, a,
+		       sizeof(float) * (size_t)d->n_slopes);
+		memcpy(c->commands + k * (size_t)d->n_act,
+		       a + d->n_slopes + d->n_subaps,
+		       sizeof(float) * (size_t)d->n_act);
+		c->ids[k] = s->fr.frame_id;
+		c->states[k] = s->fr.state;
+		c->got++;
+		if (c->got == c->want) {
+			r->cap = NULL;
+			atomic_fetch_sub(&d->want_arrays, 1);
+		}
+	}
+	if (r->state != REC_RUNNING || r->finishing) {
+		pthread_mutex_unlock(&r->mu);
+		return;
+	}
+	if (!(s->has_arrays & WTD_ARRAYS_RECORD)) {
+		/* Before the loop saw the request: not started yet. */
+		if (r->taken > 0) {
+			r->lost++;
+			r->seen++;
+		}
+	} else {
+		if (r->cur < 0 && r->n_free > 0) {
+			r->cur = r->free_list[--r->n_free];
+			r->buf[r->cur].n = 0;
+		}
+		if (r->cur < 0) {
+			r->lost++; /* the writer is behind */
+		} else {
+			struct rec_buf *b = &r->buf[r->cur];
+			size_t body = wt_frame_record_bytes(s->fr.n_subaps,
+							    s->fr.n_act);
+
+			memcpy(b->data + (size_t)b->n * r->stride, &s->fr,
+			       body);
+			b->n++;
+			r->taken++;
+			if (b->n == REC_CHUNK) {
+				rec_queue_cur(r);
+				pthread_cond_signal(&r->cv);
+			}
+		}
+		r->seen++;
+	}
+	if (r->seen >= r->wanted) {
+		rec_finish(d, r);
+	}
+	pthread_mutex_unlock(&r->mu);
+}
+
+/* An event about the recording (any thread but the loop). */
+static void rec_event(struct wtd *d, const char *name, const struct wtd_rec *r,
+		      const char *error)
+{
+	char buf[2 * WT_REQUEST_LINE_MAX + 512];
+	struct wtd_event e = {.t_ns = wt_clock_ns(), .frame = UINT64_MAX};
+	wt_json j;
+
+	if (atomic_load(&d->c.have_frame)) {
+		e.frame = get(&d->c.last_frame);
+	}
+	wt_json_init(&j, buf, sizeof(buf));
+	event_head(&j, name, &e);
+	wt_json_key(&j, "file");
+	wt_json_string(&j, r->path);
+	wt_json_key(&j, "frames");
+	wt_json_int(&j, r->written);
+	wt_json_key(&j, "frames_lost");
+	wt_json_int(&j, r->lost);
+	wt_json_key(&j, "telemetry_dropped");
+	wt_json_uint(&j, r->tm_dropped);
+	if (error) {
+		wt_json_key(&j, "error");
+		wt_json_string(&j, error);
+	}
+	wt_json_object_end(&j);
+	if (wt_json_finish(&j) > 0) {
+		wtd_event_post(d, buf);
+	}
+}
+
+/* The writer thread: appends queued buffers, closes finished recordings. */
+static void *rec_main(void *arg)
+{
+	struct wtd *d = arg;
+	struct wtd_rec *r = d->tm->rec;
+	wt_error err;
+
+	pthread_mutex_lock(&r->mu);
+	for (;;) {
+		if (r->n_full > 0) {
+			int i = r->full[r->full_head];
+			bool ok = r->state == REC_RUNNING;
+			int rc = 0;
+
+			r->full_head = (r->full_head + 1) % REC_CHUNKS;
+			r->n_full--;
+			pthread_mutex_unlock(&r->mu);
+			if (ok) {
+				rc = wt_recording_append(r->file, r->buf[i].data,
+							 r->stride,
+							 r->buf[i].n, &err);
+			}
+			pthread_mutex_lock(&r->mu);
+			if (ok && rc == 0) {
+				r->written += r->buf[i].n;
+			}
+			r->free_list[r->n_free++] = i;
+			if (ok && rc < 0) {
+				/* Failed: no more frames go to it. */
+				r->state = REC_FAILED;
+				snprintf(r->error, sizeof(r->error), "%s",
+					 err.msg);
+				if (!r->finishing) {
+					rec_finish(d, r);
+				}
+			}
+			continue;
+		}
+		if (r->finishing) {
+			wt_recording *f = r->file;
+			int rc;
+
+			if (r->state == REC_RUNNING) {
+				r->state = r->stop_asked ? REC_STOPPED
+							 : REC_DONE;
+			}
+			r->file = NULL;
+			pthread_mutex_unlock(&r->mu);
+			rc = wt_recording_close(f, r->lost,
+						(long long)r->tm_dropped,
+						r->error, &err);
+			pthread_mutex_lock(&r->mu);
+			if (rc < 0 && r->state != REC_FAILED) {
+				r->state = REC_FAILED;
+				snprintf(r->error, sizeof(r->error), "%s",
+					 err.msg);
+			}
+			r->finishing = false;
+			if (r->state == REC_FAILED) {
+				wt_log_err(d->log, "recording failed: %s",
+					   r->error);
+				rec_event(d, "recording_failed", r, r->error);
+			} else {
+				wt_log_notice(d->log,
+					      "recording %s: %lld frames",
+					      r->path, r->written);
+				rec_event(d, "recording_done", r, NULL);
+			}
+			continue;
+		}
+		if (r->quit) {
+			break;
+		}
+		pthread_cond_wait(&r->cv, &r->mu);
+	}
+	pthread_mutex_unlock(&r->mu);
+	return NULL;
+}
+
+static int rec_create(struct wtd *d, wt_error *err)
+{
+	struct wtd_rec *r = calloc(1, sizeof(*r));
+
+	if (!r) {
+		return wt_error_set(err, -ENOMEM, "out of memory");
+	}
+	d->tm->rec = r;
+	pthread_mutex_init(&r->mu, NULL);
+	pthread_cond_init(&r->cv, NULL);
+	r->cur = -1;
+	r->stride = wt_frame_record_bytes((size_t)d->n_subaps,
+					  (size_t)d->n_act);
+	/* Keep records aligned for the header's 64-bit fields. */
+	r->stride = (r->stride + 7) & ~(size_t)7;
+	return 0;
+}
+
+static void rec_destroy(struct wtd_rec *r)
+{
+	int k;
+
+	if (!r) {
+		return;
+	}
+	for (k = 0; k < REC_CHUNKS; k++) {
+		free(r->buf[k].data);
+	}
+	pthread_mutex_destroy(&r->mu);
+	pthread_cond_destroy(&r->cv);
+	free(r);
+}
+
+int wtd_record_start(struct wtd *d, const char *path, long long frames,
+		     const char *config_ini, wt_error *err)
+{
+	struct wtd_rec *r = d->tm->rec;
+	wt_recording *f;
+	int k, rc;
+
+	pthread_mutex_lock(&r->mu);
+	if (r->state == REC_RUNNING || r->finishing) {
+		pthread_mutex_unlock(&r->mu);
+		return wt_error_set(err, -EBUSY,
+				    "a recording is in progress (%s): "
+				    "record stop ends it",
+				    r->path);
+	}
+	for (k = 0; k < REC_CHUNKS; k++) {
+		if (!r->buf[k].data) {
+			r->buf[k].data = malloc(REC_CHUNK * r->stride);
+		}
+		if (!r->buf[k].data) {
+			pthread_mutex_unlock(&r->mu);
+			return wt_error_set(err, -ENOMEM, "out of memory");
+		}
+	}
+	pthread_mutex_unlock(&r->mu);
+	/* Made here, so a bad name is the request's answer. */
+	rc = wt_recording_create(path, d->n_subaps, d->n_act, frames,
+				 config_ini, &f, err);
+	if (rc < 0) {
+		return rc;
+	}
+	pthread_mutex_lock(&r->mu);
+	r->file = f;
+	snprintf(r->path, sizeof(r->path), "%s", path);
+	r->error[0] = '\0';
+	r->wanted = frames;
+	r->seen = r->taken = r->written = r->lost = 0;
+	r->tm_dropped = 0;
+	r->tm_dropped0 = get(&d->c.tm_dropped);
+	r->stop_asked = false;
+	r->n_full = r->full_head = 0;
+	r->cur = -1;
+	r->n_free = REC_CHUNKS;
+	for (k = 0; k < REC_CHUNKS; k++) {
+		r->free_list[k] = k;
+	}
+	atomic_fetch_add(&d->want_arrays, 1);
+	r->arrays_held = true;
+	r->state = REC_RUNNING;
+	pthread_mutex_unlock(&r->mu);
+	wt_log_notice(d->log, "recording %lld frames to %s", frames, path);
+	return 0;
+}
+
+int wtd_record_stop(struct wtd *d, wt_error *err)
+{
+	struct wtd_rec *r = d->tm->rec;
+
+	pthread_mutex_lock(&r->mu);
+	if (r->state != REC_RUNNING || r->finishing) {
+		pthread_mutex_unlock(&r->mu);
+		return wt_error_set(err, -ENOENT, "no recording in progress");
+	}
+	r->stop_asked = true;
+	rec_finish(d, r);
+	pthread_mutex_unlock(&r->mu);
+	return 0;
+}
+
+void wtd_record_json(struct wtd *d, wt_json *j)
+{
+	struct wtd_rec *r = d->tm->rec;
+
+	pthread_mutex_lock(&r->mu);
+	if (r->state == REC_NONE) {
+		pthread_mutex_unlock(&r->mu);
+		wt_json_null(j);
+		return;
+	}
+	wt_json_object_begin(j);
+	wt_json_key(j, "file");
+	wt_json_string(j, r->path);
+	wt_json_key(j, "state");
+	/* running until the writer has closed the file */
+	wt_json_string(j, r->finishing && r->state != REC_FAILED
+				  ? "finishing"
+				  : rec_state_names[r->state]);
+	wt_json_key(j, "frames_requested");
+	wt_json_int(j, r->wanted);
+	wt_json_key(j, "frames_taken");
+	wt_json_int(j, r->taken);
+	wt_json_key(j, "frames");
+	wt_json_int(j, r->written);
+	wt_json_key(j, "frames_lost");
+	wt_json_int(j, r->lost);
+	wt_json_key(j, "telemetry_dropped");
+	wt_json_uint(j, r->state == REC_RUNNING && !r->finishing
+				? get(&d->c.tm_dropped) - r->tm_dropped0
+				: r->tm_dropped);
+	wt_json_key(j, "error");
+	wt_json_string(j, r->error[0] ? r->error : NULL);
+	wt_json_object_end(j);
+	pthread_mutex_unlock(&r->mu);
+}
+
+int wtd_capture_start(struct wtd *d, struct wtd_capture *c, wt_error *err)
+{
+	struct wtd_rec *r = d->tm->rec;
+
+	pthread_mutex_lock(&r->mu);
+	if (r->cap) {
+		pthread_mutex_unlock(&r->mu);
+		return wt_error_set(err, -EBUSY, "a capture is in progress");
+	}
+	c->got = 0;
+	r->cap = c;
+	atomic_fetch_add(&d->want_arrays, 1);
+	pthread_mutex_unlock(&r->mu);
+	return 0;
+}
+
+long wtd_capture_done(struct wtd *d, struct wtd_capture *c, bool *full)
+{
+	struct wtd_rec *r = d->tm->rec;
+	long got;
+
+	pthread_mutex_lock(&r->mu);
+	*full = r->cap != c;
+	got = c->got;
+	pthread_mutex_unlock(&r->mu);
+	return got;
+}
+
+void wtd_capture_cancel(struct wtd *d, struct wtd_capture *c)
+{
+	struct wtd_rec *r = d->tm->rec;
+
+	pthread_mutex_lock(&r->mu);
+	if (r->cap == c) {
+		r->cap = NULL;
+		atomic_fetch_sub(&d->want_arrays, 1);
+	}
+	pthread_mutex_unlock(&r->mu);
+}
+
 static void on_frame(struct wtd *d, const struct wtd_slot *s)
 {
 	struct wtd_tm *t = d->tm;
@@ -554,7 +1005,11 @@ static void on_frame(struct wtd *d, const struct wtd_slot *s)
 		t->rms_sum += s->fr.residual_rms;
 		t->rms_n++;
 	}
-	if (s->has_arrays) {
+	if ((s->has_arrays & WTD_ARRAYS_RECORD) ||
+	    atomic_load_explicit(&d->want_arrays, memory_order_relaxed) > 0) {
+		rec_on_frame(d, s);
+	}
+	if (s->has_arrays & WTD_ARRAYS_PUBLISH) {
 		size_t body =
 			wt_frame_record_bytes(s->fr.n_subaps, s->fr.n_act);
 
@@ -697,6 +1152,11 @@ void *wtd_telemetry_main(void *arg)
 	int linger = 200;
 	uint64_t next;
 
+	t->rec->have_thread =
+		pthread_create(&t->rec->thread, NULL, rec_main, d) == 0;
+	if (!t->rec->have_thread) {
+		wt_log_err(d->log, "no recorder thread: recordings will fail");
+	}
 	t->period_start_ns = wt_clock_ns();
 	next = t->period_start_ns + atomic_load(&d->status_period_ns);
 	while (!atomic_load_explicit(&d->tm_stop, memory_order_acquire)) {
@@ -719,6 +1179,17 @@ void *wtd_telemetry_main(void *arg)
 	/* The loop has stopped: publish what it left, and give the last
 	 * messages a moment to leave. */
 	drain_ring(d);
+	pthread_mutex_lock(&t->rec->mu);
+	if (t->rec->state == REC_RUNNING && !t->rec->finishing) {
+		t->rec->stop_asked = true;
+		rec_finish(d, t->rec);
+	}
+	t->rec->quit = true;
+	pthread_cond_signal(&t->rec->cv);
+	pthread_mutex_unlock(&t->rec->mu);
+	if (t->rec->have_thread) {
+		pthread_join(t->rec->thread, NULL);
+	}
 	drain_evq(d);
 	zmq_setsockopt(d->s_telemetry, ZMQ_LINGER, &linger, sizeof(linger));
 	zmq_close(d->s_telemetry);

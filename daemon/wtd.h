@@ -102,6 +102,11 @@ struct wtd_event {
 
 enum { WTD_SLOT_FRAME = 1, WTD_SLOT_EVENT = 2 };
 
+/** has_arrays bits of a frame slot: published on "frame " (one in
+ * daemon.frame_decimation), and for a recording or capture (every frame
+ * while d->want_arrays > 0). */
+enum { WTD_ARRAYS_PUBLISH = 1, WTD_ARRAYS_RECORD = 2 };
+
 /** A ring record: a frame (header, then 3N + A floats when has_arrays)
  * or an event. */
 struct wtd_slot {
@@ -216,6 +221,15 @@ struct wtd_loop;
 struct wtd_ctl;
 struct wtd_tm;
 
+/** What wtd_capture() fills: the next `want` frames' residual slopes
+ * (want x n_slopes), commands (want x n_act), frame ids and states. */
+struct wtd_capture {
+	long want, got;
+	float *slopes, *commands;
+	uint64_t *ids;
+	uint16_t *states;
+};
+
 /** The daemon. */
 struct wtd {
 	wt_log *log;
@@ -241,6 +255,7 @@ struct wtd {
 	atomic_ullong driver_timeout_ns; /* for status; the loop has its own */
 	atomic_ullong image_period_ns;	 /* daemon.image_hz; 0: no images */
 	wt_ring *image_ring;		 /* loop -> telemetry; telemetry.c */
+	atomic_int want_arrays; /* > 0: every frame record carries arrays */
 
 	struct wtd_loop *loop;
 	struct wtd_ctl *ctl;
@@ -294,5 +309,26 @@ void wtd_offsets_json(wt_json *j, int n, const int *noll, const double *nm);
 void wtd_event_post(struct wtd *d, const char *json);
 /** Names used in JSON. */
 const char *wtd_fault_name(int fault);
+/**
+ * Start recording the next `frames` frames into a new HDF5 file at path
+ * (control thread; the file is created here, the telemetry thread hands
+ * frames to a writer thread).  -EBUSY while a recording runs, -EIO etc.
+ * when the file cannot be made.
+ */
+int wtd_record_start(struct wtd *d, const char *path, long long frames,
+		     const char *config_ini, wt_error *err);
+/** Stop the recording in progress (its file keeps the frames so far);
+ * -ENOENT when none runs. */
+int wtd_record_stop(struct wtd *d, wt_error *err);
+/** The status object's "recording" value (null before the first). */
+void wtd_record_json(struct wtd *d, wt_json *j);
+/** Start filling c (c->want frames, buffers allocated by the caller) from
+ * the next frames the loop answers.  Control thread.  -EBUSY when a
+ * capture runs.  c must stay valid until full or cancelled. */
+int wtd_capture_start(struct wtd *d, struct wtd_capture *c, wt_error *err);
+/** Frames in c so far; *full when all c->want have come. */
+long wtd_capture_done(struct wtd *d, struct wtd_capture *c, bool *full);
+/** Stop filling c (nothing happens when it is already full). */
+void wtd_capture_cancel(struct wtd *d, struct wtd_capture *c);
 
 #endif /* WTD_H */

@@ -2754,3 +2754,154 @@ out:
 	wt_draw_scene_destroy(s);
 	return rc;
 }
+
+/* --- charts (x-y plots of data series) ------------------------------------ */
+
+#define CHART_W 480
+#define CHART_H 360
+
+static double chart_v(double v, bool log_scale)
+{
+	return log_scale ? (v > 0 ? log10(v) : NAN) : v;
+}
+
+/* Range of the finite (and, on a log axis, positive) values. */
+static void chart_range(const wt_draw_chart *ch, bool y, double *lo,
+			double *hi)
+{
+	bool lg = y ? ch->log_y : ch->log_x;
+
+	*lo = INFINITY;
+	*hi = -INFINITY;
+	for (int s = 0; s < ch->n_series; s++) {
+		const wt_draw_series *se = &ch->series[s];
+
+		for (int k = 0; k < se->n; k++) {
+			double v = chart_v(y ? se->y[k] : se->x[k], lg);
+
+			if (isfinite(v)) {
+				*lo = fmin(*lo, v);
+				*hi = fmax(*hi, v);
+			}
+		}
+	}
+	if (!(*lo <= *hi)) {
+		*lo = 0;
+		*hi = 1;
+	}
+	if (lg) {
+		*lo = floor(*lo);
+		*hi = ceil(*hi);
+	} else if (y) {
+		*lo = fmin(*lo, 0);
+		*hi = nice_ceil(*hi > 0 ? *hi : 1);
+	}
+	if (*hi - *lo <= 0) {
+		*hi = *lo + 1;
+	}
+}
+
+static void chart_tick(struct ctx *x, double v, bool lg, char *buf,
+		       size_t len)
+{
+	(void)x;
+	if (lg) {
+		snprintf(buf, len, "1e%d", (int)lround(v));
+	} else {
+		num(buf, len, v, 3);
+	}
+}
+
+static void draw_chart(struct ctx *x, const wt_draw_chart *ch, double px,
+		       double py)
+{
+	static const uint32_t cols[] = {ACCENT, TRUTH, ALERT, 0x2e7d32u};
+	double gx = px + 64, gy = py + 40, gw = CHART_W - 84, gh = CHART_H - 100;
+	double x0, x1, y0, y1;
+	char a[32];
+
+	panel(x, px, py, ch->title ? ch->title : "");
+	chart_range(ch, false, &x0, &x1);
+	chart_range(ch, true, &y0, &y1);
+	for (int k = 0; k <= 4; k++) {
+		double yy = gy + gh - gh * k / 4, xx = gx + gw * k / 4;
+
+		x->c->ops->line(x->c, gx, yy, gx + gw, yy, PALE, 1);
+		chart_tick(x, y0 + (y1 - y0) * k / 4, ch->log_y, a, sizeof(a));
+		text(x, gx - 4, yy + 4, RIGHT, 1, INK, "%s", a);
+		chart_tick(x, x0 + (x1 - x0) * k / 4, ch->log_x, a, sizeof(a));
+		text(x, xx, gy + gh + 14, MIDDLE, 1, INK, "%s", a);
+	}
+	x->c->ops->line(x->c, gx, gy, gx, gy + gh, GREY, 1);
+	x->c->ops->line(x->c, gx, gy + gh, gx + gw, gy + gh, GREY, 1);
+	text(x, gx + gw / 2, gy + gh + 30, MIDDLE, 1, INK, "%s",
+	     ch->xlabel ? ch->xlabel : "");
+	text(x, gx, gy - 6, LEFT, 1, INK, "%s", ch->ylabel ? ch->ylabel : "");
+	for (int s = 0; s < ch->n_series; s++) {
+		const wt_draw_series *se = &ch->series[s];
+		uint32_t col = cols[s % 4];
+		double lx = 0, ly = 0;
+		bool pen = false;
+
+		for (int k = 0; k < se->n; k++) {
+			double vx = chart_v(se->x[k], ch->log_x);
+			double vy = chart_v(se->y[k], ch->log_y), sx, sy;
+
+			if (!isfinite(vx) || !isfinite(vy)) {
+				pen = false;
+				continue;
+			}
+			sx = gx + (vx - x0) / (x1 - x0) * gw;
+			sy = gy + gh - fmin(fmax((vy - y0) / (y1 - y0), 0), 1) *
+					       gh;
+			if (pen) {
+				x->c->ops->line(x->c, lx, ly, sx, sy, col, 1.5);
+			}
+			if (se->n <= 64) {
+				x->c->ops->disc(x->c, sx, sy, 2.5, col);
+			}
+			lx = sx;
+			ly = sy;
+			pen = true;
+		}
+		x->c->ops->line(x->c, px + 12, py + CHART_H - 12 - 13 * s - 3,
+				px + 30, py + CHART_H - 12 - 13 * s - 3, col,
+				2);
+		text(x, px + 34, py + CHART_H - 12 - 13 * s, LEFT, 1, INK,
+		     "%s", se->label ? se->label : "");
+	}
+}
+
+int wt_draw_charts_svg(const wt_draw_chart *charts, int n, uint8_t **out,
+		       size_t *len, wt_error *err)
+{
+	int w = GAP + n * (CHART_W + GAP), h = CHART_H + 2 * GAP;
+	struct svg v = {
+		.base = {.ops = &svg_ops, .width = w, .height = h, .err = err},
+	};
+	struct ctx x = {.c = &v.base};
+
+	*out = NULL;
+	*len = 0;
+	if (!charts || n < 1) {
+		return wt_error_set(err, -EINVAL, "draw: no chart");
+	}
+	sb_printf(&v.sb,
+		  "<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n"
+		  "<svg xmlns=\"http://www.w3.org/2000/svg\" "
+		  "width=\"%d\" height=\"%d\" viewBox=\"0 0 %d %d\" "
+		  "font-family=\"DejaVu Sans Mono, monospace\">\n",
+		  w, h, w, h);
+	v.base.ops->rect(&v.base, 0, 0, w, h, 0xeceff1u);
+	for (int k = 0; k < n; k++) {
+		draw_chart(&x, &charts[k], GAP + k * (CHART_W + GAP), GAP);
+	}
+	sb_printf(&v.sb, "</svg>\n");
+	if (v.sb.failed) {
+		free(v.sb.buf);
+		return wt_error_set(err, -ENOMEM, "draw: out of memory");
+	}
+	*out = (uint8_t *)v.sb.buf;
+	*len = v.sb.len;
+	return 0;
+}

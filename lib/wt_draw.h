@@ -358,4 +358,30 @@ int wt_draw_snapshot_image(const wt_config *cfg, const char *status_json,
 			   const void *image, size_t image_len,
 			   const char *path, wt_error *err);
 
+/* --- charts --------------------------------------------------------------- */
+
+/** One data series of a chart: n points (x[k], y[k]); NaN points (and
+ * points <= 0 on a log axis) break the line. */
+typedef struct wt_draw_series {
+	const double *x, *y;
+	int n;
+	const char *label; /**< legend text */
+} wt_draw_series;
+
+/** An x-y chart in the panels' style (axes, grid, legend). */
+typedef struct wt_draw_chart {
+	const char *title, *xlabel, *ylabel;
+	bool log_x, log_y;
+	const wt_draw_series *series;
+	int n_series; /**< at most 4 have distinct colours */
+} wt_draw_chart;
+
+/**
+ * n charts side by side as one SVG document in a malloc'ed buffer (*out,
+ * *len, NUL-terminated, the terminator not counted).  -EINVAL for no
+ * chart, -ENOMEM.
+ */
+int wt_draw_charts_svg(const wt_draw_chart *charts, int n, uint8_t **out,
+		       size_t *len, wt_error *err);
+
 #endif /* WT_DRAW_H */

@@ -153,6 +153,16 @@ const double *wt_svd_values(const wt_svd *s)
 	return s->sv;
 }
 
+const double *wt_svd_u(const wt_svd *s)
+{
+	return s ? s->u : NULL;
+}
+
+const double *wt_svd_vt(const wt_svd *s)
+{
+	return s ? s->vt : NULL;
+}
+
 int wt_recon_modes(const wt_svd *s, int modes, double min_ratio)
 {
 	int k;

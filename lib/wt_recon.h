@@ -35,6 +35,14 @@ int wt_svd_count(const wt_svd *s);
 /** The wt_svd_count() singular values, descending; NULL for NULL. */
 const double *wt_svd_values(const wt_svd *s);
 
+/** U, m x count row-major (left singular vector i is column i: slope
+ * pattern of mode i); NULL for NULL. */
+const double *wt_svd_u(const wt_svd *s);
+
+/** V^T, count x n row-major (row i: actuator pattern of mode i); NULL for
+ * NULL. */
+const double *wt_svd_vt(const wt_svd *s);
+
 /**
  * How many modes to keep.  modes > 0: min(modes, count).  Otherwise the
  * number of singular values with sigma_i / sigma_1 >= min_ratio (0 when

@@ -79,6 +79,12 @@ static const struct word_def words[WT_REQ_COUNT] = {
 			   "loop holds"},
 	[WT_REQ_SHAPE] = {"shape", 3, 3, "shape zernike J AMOUNT_NM",
 			  "open loop: put the mirror in that shape (held)"},
+	[WT_REQ_RECORD] = {"record", 1, 2, "record N FILE | record stop",
+			   "record the next N frames to an HDF5 file"},
+	[WT_REQ_AUTOGAIN] = {"autogain", 1, 2,
+			     "autogain FRAMES [apply] | autogain status",
+			     "choose per-mode gains from FRAMES frames "
+			     "(apply: install them)"},
 };
 
 const char *wt_request_word_name(enum wt_req_word word)
@@ -464,6 +470,51 @@ int wt_request_parse(const char *line, size_t len, wt_request *req,
 			      "the file name", err);
 		if (rc < 0) {
 			return rc;
+		}
+		break;
+	case WT_REQ_RECORD:
+		if (nargs == 1) {
+			if (strcmp(word[1], "stop") != 0) {
+				return wt_error_set(err, -EINVAL,
+						    "missing argument; usage: "
+						    "%s",
+						    def->usage);
+			}
+			req->stop = true;
+			break;
+		}
+		rc = parse_count("N", word[1], 1, 100000000, &req->frames,
+				 err);
+		if (rc < 0) {
+			return rc;
+		}
+		if (word[2][0] == '\0') {
+			return wt_error_set(err, -EINVAL, "empty file name");
+		}
+		rc = copy_arg(req->path, sizeof(req->path), word[2],
+			      "the file name", err);
+		if (rc < 0) {
+			return rc;
+		}
+		break;
+	case WT_REQ_AUTOGAIN:
+		if (nargs == 1 && strcmp(word[1], "status") == 0) {
+			req->status = true;
+			break;
+		}
+		rc = parse_count("FRAMES", word[1], 64, 65536, &req->frames,
+				 err);
+		if (rc < 0) {
+			return rc;
+		}
+		if (nargs == 2) {
+			if (strcmp(word[2], "apply") != 0) {
+				return wt_error_set(err, -EINVAL,
+						    "unknown argument '" ECHO
+						    "'; usage: %s",
+						    word[2], def->usage);
+			}
+			req->apply = true;
 		}
 		break;
 	default:

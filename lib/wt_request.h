@@ -252,6 +252,55 @@
  *                        ("actuator K would be at V, outside the limits
  *                        ...").  RESULT: {"state":"held","noll":J,"nm":
  *                        AMOUNT,"largest_stroke":NUMBER} (largest |R p|).
+ * record N FILE          Record the next N frames answered (every frame,
+ *                        not the decimated stream; N 1 .. 100000000) into
+ *                        the HDF5 file FILE (replaced; layout in
+ *                        lib/wt_recording.h).  The file is created before
+ *                        the reply, so a bad name is refused here; the
+ *                        frames are written by a thread of their own, so
+ *                        a slow or full disk never delays the loop: frames
+ *                        the writer cannot keep up with are counted as
+ *                        lost, and a failed write ends the recording with
+ *                        a "recording_failed" event and the reason in
+ *                        status.recording.error.  Refused while another
+ *                        recording runs.  RESULT: {"file":FILE,"frames":N}.
+ * record stop            End the recording in progress; the file keeps
+ *                        the frames so far.  RESULT: the status object's
+ *                        "recording" value.
+ * autogain FRAMES [apply]
+ *                        Choose per-mode gains (modal gain optimisation,
+ *                        lib/wt_modalgain.h) from the residual slopes and
+ *                        commands of the next FRAMES frames (64 .. 65536;
+ *                        open, closed or held), projected on the installed
+ *                        control matrix's modes (u_i . s, slope space); in
+ *                        closed loop from the pseudo-open-loop record
+ *                        y_i(t) - sigma_i a_i(t - d), a_i = v_i . (c -
+ *                        flat), d = control.loop_delay.  It runs in the
+ *                        background: the reply comes at once, the outcome
+ *                        is an "autogain" event and `autogain status`.
+ *                        With apply the chosen loop gains g_i are
+ *                        installed as control.gain G and control.mode_gains
+ *                        g_i / G (G stays unless a factor would exceed 2),
+ *                        and FRAMES more frames measure the result.  Needs
+ *                        a control matrix made from an interaction matrix;
+ *                        refused while one runs.  RESULT: as for status.
+ * autogain status        RESULT: {"stage":"none"|"recording"|"measuring"|
+ *                        "done"|"failed","frames":F,"frames_done":N,
+ *                        "error":TEXT (failed only), and once optimised:
+ *                        "modes":K,"delay":d,"state":STATE during the
+ *                        record,"loop_gains":[g_i ...] chosen,
+ *                        "current_loop_gains":[...] before,
+ *                        "predicted":{"current":V,"optimised":V},
+ *                        "measured":V|null (closed loop: the residual in
+ *                        the record),"applied":BOOL,"gain":G,
+ *                        "mode_gains":[...] (when applied),
+ *                        "achieved":V|null (measured after applying),
+ *                        "noise":V (the measurement noise, estimated from
+ *                        the top of each mode's spectrum)}; every V is a
+ *                        variance summed over the controlled modes,
+ *                        pixels^2 (slope space); measured and achieved
+ *                        are var(y_i) - noise, the residual without the
+ *                        noise of its measurement, as predicted.
  *
  * ======================================================================
  * 2. Telemetry: PUB on [daemon] telemetry
@@ -329,7 +378,15 @@
  *                   "singular_values":[NUMBER, ...]},  control reply only
  *    "calibrating":null|{"kind":"reference"|"matrix",
  *                        "frames_done":N,"frames_total":N},
- *    "offsets":[{"noll":J,"nm":AMOUNT}, ...]}  held Zernike offsets
+ *    "offsets":[{"noll":J,"nm":AMOUNT}, ...],  held Zernike offsets
+ *    "recording":null|{"file":TEXT,   the last recording (null: none yet)
+ *                      "state":"recording"|"finishing"|"done"|"stopped"|
+ *                              "failed",
+ *                      "frames_requested":N,"frames_taken":N (handed to
+ *                      the writer),"frames":N (written to the file),
+ *                      "frames_lost":N (the writer was behind),
+ *                      "telemetry_dropped":N (ring full meanwhile),
+ *                      "error":TEXT|null}}
  *
  * ======================================================================
  * 4. Events
@@ -378,6 +435,12 @@
  *                           "error":TEXT|null (a `reload` or SIGHUP)
  *   "offsets"               "offsets":[{"noll":J,"nm":AMOUNT}, ...]
  *   "saved", "loaded"       "file":TEXT
+ *   "autogain"              the members of `autogain status`, when done
+ *                           or failed
+ *   "recording_done", "recording_failed"
+ *                           "file":TEXT,"frames":N (written),
+ *                           "frames_lost":N,"telemetry_dropped":N, and
+ *                           for a failure "error":TEXT
  *   "stopping"
  *
  * ======================================================================
@@ -495,6 +558,8 @@ enum wt_req_word {
 	WT_REQ_RELOAD,
 	WT_REQ_OFFSET,
 	WT_REQ_SHAPE,
+	WT_REQ_RECORD,
+	WT_REQ_AUTOGAIN,
 	WT_REQ_COUNT
 };
 
@@ -524,6 +589,9 @@ typedef struct wt_request {
 	enum wt_offset_op offset_op; /**< offset: show, clear or add */
 	int noll;		     /**< offset zernike, shape: J */
 	double amount_nm;	     /**< offset zernike, shape: AMOUNT_NM */
+	bool stop;		     /**< record stop */
+	bool apply;		     /**< autogain ... apply */
+	bool status;		     /**< autogain status */
 } wt_request;
 
 /**

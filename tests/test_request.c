@@ -65,6 +65,8 @@ static void parses_every_word(void **state)
 		{"reload", WT_REQ_RELOAD},
 		{"offset", WT_REQ_OFFSET},
 		{"shape zernike 4 50", WT_REQ_SHAPE},
+		{"record 100 /tmp/r.h5", WT_REQ_RECORD},
+		{"autogain 1024", WT_REQ_AUTOGAIN},
 	};
 	wt_request req;
 	wt_error err;
@@ -112,6 +114,38 @@ static void parses_arguments_into_fields(void **state)
 	assert_int_equal(parse("save /data/cal 1.h5", &req, &err) < 0, 1);
 	assert_int_equal(parse("save \"/data/cal 1.h5\"", &req, &err), 0);
 	assert_string_equal(req.path, "/data/cal 1.h5");
+}
+
+static void parses_record_and_autogain(void **state)
+{
+	wt_request req;
+	wt_error err;
+
+	(void)state;
+	assert_int_equal(parse("record 5000 \"/tmp/a b.h5\"", &req, &err), 0);
+	assert_int_equal(req.frames, 5000);
+	assert_string_equal(req.path, "/tmp/a b.h5");
+	assert_false(req.stop);
+	assert_int_equal(parse("record stop", &req, &err), 0);
+	assert_true(req.stop);
+	assert_int_equal(parse("autogain 2048 apply", &req, &err), 0);
+	assert_int_equal(req.frames, 2048);
+	assert_true(req.apply);
+	assert_int_equal(parse("autogain 64", &req, &err), 0);
+	assert_false(req.apply);
+	assert_false(req.status);
+	assert_int_equal(parse("autogain status", &req, &err), 0);
+	assert_true(req.status);
+	refused("record", "usage: record N FILE");
+	refused("record 10", "usage");
+	refused("record 0 /tmp/x.h5", "N");
+	refused("record 10x /tmp/x.h5", "N");
+	refused("record 10 \"\"", "empty file name");
+	refused("record 1 2 3", "too many");
+	refused("autogain", "usage: autogain FRAMES");
+	refused("autogain 32", "FRAMES");
+	refused("autogain 100000", "FRAMES");
+	refused("autogain 1024 now", "unknown argument 'now'");
 }
 
 static void refuses_unknown_words(void **state)
@@ -585,6 +619,7 @@ static void help_covers_every_word(void **state)
 static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(parses_every_word),
 	cmocka_unit_test(parses_arguments_into_fields),
+	cmocka_unit_test(parses_record_and_autogain),
 	cmocka_unit_test(refuses_unknown_words),
 	cmocka_unit_test(refuses_extra_arguments),
 	cmocka_unit_test(refuses_missing_arguments),

@@ -45,6 +45,7 @@ static const char *const ref_names[] = {
 	"status",    "ping",	  "open", "close",  "hold",   "flat",
 	"reference", "calibrate", "set",  "get",    "config", "save",
 	"load",	     "shutdown",  "help", "reload", "offset", "shape",
+	"record", "autogain",
 };
 
 /* "zernike J AMOUNT_NM" at w[0..2]: J whole in [2, WT_OFFSET_NOLL_MAX],
@@ -141,6 +142,24 @@ static int ref_split(const uint8_t *s, size_t len, struct ref_req *r)
 	return r->n > 16 ? -EINVAL : 0;
 }
 
+/* A whole number in [lo, hi]: 0 or -EINVAL. */
+static int ref_count(const char *s, long lo, long hi, long *out)
+{
+	long v = 0;
+
+	if (!s[0]) {
+		return -EINVAL;
+	}
+	for (const char *p = s; *p; p++) {
+		if (*p < '0' || *p > '9') {
+			return -EINVAL;
+		}
+		v = v > 100000000 ? v : v * 10 + (*p - '0');
+	}
+	*out = v;
+	return v < lo || v > hi ? -EINVAL : 0;
+}
+
 /* The word rules; 0 or -EINVAL, with r->word, frames, capture set. */
 static int ref_words(struct ref_req *r)
 {
@@ -215,6 +234,23 @@ static int ref_words(struct ref_req *r)
 		return args == 3 ? ref_zernike(r->w + 1) : -EINVAL;
 	case WT_REQ_SHAPE:
 		return args == 3 ? ref_zernike(r->w + 1) : -EINVAL;
+	case WT_REQ_RECORD:
+		if (args == 1) {
+			return strcmp(r->w[1], "stop") ? -EINVAL : 0;
+		}
+		if (args != 2 || !r->w[2][0]) {
+			return -EINVAL;
+		}
+		return ref_count(r->w[1], 1, 100000000, &r->frames);
+	case WT_REQ_AUTOGAIN:
+		if (args == 1 && !strcmp(r->w[1], "status")) {
+			return 0;
+		}
+		if (args < 1 || args > 2 ||
+		    (args == 2 && strcmp(r->w[2], "apply"))) {
+			return -EINVAL;
+		}
+		return ref_count(r->w[1], 64, 65536, &r->frames);
 	default:
 		return args == 0 ? 0 : -EINVAL;
 	}
