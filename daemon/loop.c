@@ -962,6 +962,39 @@ static void process(struct wtd_loop *l, const void *data, size_t len,
 	bump(&d->c.answered, 1);
 }
 
+/*
+ * After the flat went out on stopping: a frame may already be on its way
+ * (a lockstep driver sends the next frame as soon as it has the last
+ * command, and would then wait for an answer to it).  Answer every newer
+ * well-formed frame that comes within WTD_STOP_DRAIN_MS of the last with
+ * the flat too, at most WTD_STOP_DRAIN_FRAMES of them, so the flat is what
+ * the driver applies last whatever was in flight.
+ */
+static void stop_drain(struct wtd_loop *l, zmq_pollitem_t *item)
+{
+	const void *payload;
+	wt_header h;
+	int k, rc, clamped;
+
+	for (k = 0; k < WTD_STOP_DRAIN_FRAMES; k++) {
+		if (zmq_poll(item, 1, WTD_STOP_DRAIN_MS) <= 0) {
+			return;
+		}
+		rc = zmq_recv(l->d->s_frames, l->recvbuf, l->recv_len,
+			      ZMQ_DONTWAIT);
+		if (rc < 0 || (size_t)rc > l->recv_len ||
+		    wt_proto_decode(l->recvbuf, (size_t)rc, &h, &payload) <
+			    0 ||
+		    h.kind == WT_KIND_COMMAND_F32 ||
+		    (l->have_id && h.sequence <= l->last_id)) {
+			continue;
+		}
+		l->last_id = h.sequence;
+		l->have_id = true;
+		send_command(l, h.sequence, &clamped);
+	}
+}
+
 /* --- the thread ----------------------------------------------------------- */
 
 /* Defined only by tests/alloc_probe.c, which counts heap calls. */
@@ -1011,6 +1044,7 @@ void *wtd_loop_main(void *arg)
 	if (l->have_id) {
 		send_command(l, l->last_id, &clamped);
 	}
+	stop_drain(l, &item);
 	event(l, WTD_EV_STOPPING, 0, 0, 0, 0);
 	/* Give the flat command time to leave before the socket goes. */
 	zmq_setsockopt(d->s_commands, ZMQ_LINGER, &linger, sizeof(linger));

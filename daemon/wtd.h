@@ -46,6 +46,9 @@
 /** zmq_poll slice of the loop thread: how quickly it notices the mailbox,
  * the stop flag and driver silence when no frame comes. */
 #define WTD_POLL_MS 10
+/* Stopping: frames answered with the flat after it went out (loop.c). */
+#define WTD_STOP_DRAIN_MS     50
+#define WTD_STOP_DRAIN_FRAMES 20
 
 /* Queue length of the frames and commands links (ZMQ_RCVHWM, ZMQ_SNDHWM). */
 #define WTD_LINK_HWM 4
