@@ -9,6 +9,9 @@
 
 #include "wt_recon.h"
 
+/* Least coverage of an actuator flagged displaced on its own. */
+#define WT_DIAG_POSITION_COVERAGE 0.9
+
 /* Passes of outlier rejection. */
 #define FIT_PASSES 10
 /* Template bins per lenslet pitch. */
@@ -796,7 +799,12 @@ int wt_diag_compute(const double *D, const wt_grid *lenslets,
 	for (k = 0; k < n; k++) {
 		wt_diag_actuator *a = &r->act[k];
 
-		if (a->offset_pitches > p->swap_tolerance && a->partner < 0) {
+		/* A response the pupil's edge cuts (coverage under
+		 * WT_DIAG_POSITION_COVERAGE) is placed only to about half a
+		 * pitch (its centroid moves inward by an amount the template
+		 * predicts roughly): alone, its offset is no evidence. */
+		if (a->offset_pitches > p->swap_tolerance && a->partner < 0 &&
+		    a->coverage >= WT_DIAG_POSITION_COVERAGE) {
 			a->flags |= WT_DIAG_DISPLACED;
 			r->n_displaced++;
 		}

@@ -71,7 +71,9 @@
  *    greedily in index order, each with the partner of least
  *    max(|c_a - e_b|, |c_b - e_a|).
  *  - DISPLACED: displaced as above but no partner fits (wired to an
- *    unexpected place, or swapped with a channel that shows no response).
+ *    unexpected place, or swapped with a channel that shows no response);
+ *    only for actuators with coverage >= 0.9: a response cut by the
+ *    pupil's edge is placed only to about half a pitch.
  * Dead actuators have no usable centroid and are not judged for
  * displacement.  The swap and displacement tests need a sensor at least as
  * fine as the actuator grid (lenslet pitch <= actuator pitch: the Fried
