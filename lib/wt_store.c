@@ -227,17 +227,19 @@ static int all_finite_f(const float *v, size_t n)
 	return 1;
 }
 
-static int write_attr_int(hid_t obj, const char *name, int value)
+/* A scalar attribute of file type ftype from *value of memory type mtype. */
+static int write_attr_scalar(hid_t obj, const char *name, hid_t ftype,
+			     hid_t mtype, const void *value)
 {
 	hid_t space = H5Screate(H5S_SCALAR);
 	hid_t attr = -1;
 	int rc = -1;
 
 	if (space >= 0) {
-		attr = H5Acreate2(obj, name, H5T_STD_I32LE, space, H5P_DEFAULT,
+		attr = H5Acreate2(obj, name, ftype, space, H5P_DEFAULT,
 				  H5P_DEFAULT);
 	}
-	if (attr >= 0 && H5Awrite(attr, H5T_NATIVE_INT, &value) >= 0) {
+	if (attr >= 0 && H5Awrite(attr, mtype, value) >= 0) {
 		rc = 0;
 	}
 	if (attr >= 0) {
@@ -249,26 +251,16 @@ static int write_attr_int(hid_t obj, const char *name, int value)
 	return rc;
 }
 
+static int write_attr_int(hid_t obj, const char *name, int value)
+{
+	return write_attr_scalar(obj, name, H5T_STD_I32LE, H5T_NATIVE_INT,
+				 &value);
+}
+
 static int write_attr_double(hid_t obj, const char *name, double value)
 {
-	hid_t space = H5Screate(H5S_SCALAR);
-	hid_t attr = -1;
-	int rc = -1;
-
-	if (space >= 0) {
-		attr = H5Acreate2(obj, name, H5T_IEEE_F64LE, space, H5P_DEFAULT,
-				  H5P_DEFAULT);
-	}
-	if (attr >= 0 && H5Awrite(attr, H5T_NATIVE_DOUBLE, &value) >= 0) {
-		rc = 0;
-	}
-	if (attr >= 0) {
-		H5Aclose(attr);
-	}
-	if (space >= 0) {
-		H5Sclose(space);
-	}
-	return rc;
+	return write_attr_scalar(obj, name, H5T_IEEE_F64LE, H5T_NATIVE_DOUBLE,
+				 &value);
 }
 
 static hid_t string_type(size_t len)

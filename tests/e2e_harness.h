@@ -117,6 +117,19 @@ int e2e_truth_skip(e2e *e, int n, sim_truth *t, int timeout_ms);
  * returned in *daemon_status, *sim_status when not NULL), remove the folder. */
 void e2e_teardown(e2e *e, int *daemon_status, int *sim_status);
 
+#ifdef cmocka_unit_test
+/** e2e_teardown() and assert that both programs exited 0 (in a cmocka test,
+ * with tests/wt_test.h included first). */
+static inline void e2e_stop_clean(e2e *e)
+{
+	int ds, ss;
+
+	e2e_teardown(e, &ds, &ss);
+	assert_int_equal(ds, 0);
+	assert_int_equal(ss, 0);
+}
+#endif
+
 /** What a program run by e2e_run() printed, and how it ended. */
 typedef struct e2e_run_result {
 	int status;	/**< exit status; -1: killed by a signal or the timeout */

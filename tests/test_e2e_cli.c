@@ -34,15 +34,6 @@ static void start(e2e *e)
 	assert_int_equal(e2e_start_daemon(e, NULL), 0);
 }
 
-static void stop_clean(e2e *e)
-{
-	int ds, ss;
-
-	e2e_teardown(e, &ds, &ss);
-	assert_int_equal(ds, 0);
-	assert_int_equal(ss, 0);
-}
-
 /* Run the CLI with up to 4 words after `-e CONTROL` (NULL ends them). */
 static void cli(const e2e *e, e2e_run_result *r, const char *a0, const char *a1,
 		const char *a2, const char *a3)
@@ -126,7 +117,7 @@ static void status_prints_name_value_lines_with_state_open(void **st)
 	}
 	/* state, counts.*, refused.*, calibration.* ...: dozens of lines. */
 	assert_true(n >= 30);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /* `--json status`: the daemon's reply unchanged, one JSON object on one
@@ -161,7 +152,7 @@ static void json_status_is_one_object_with_ok_true(void **st)
 	assert_true(wt_jsonp_string(r.out, &t[state], s, sizeof(s)) >= 0);
 	assert_string_equal(s, "open");
 	free(t);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /* `close` without a control matrix: exit 1, the daemon's reason (its text
@@ -179,7 +170,7 @@ static void close_before_calibration_exits_1_with_daemon_reason(void **st)
 	assert_string_equal(r.err, "wavetrim: " NO_MATRIX "\n");
 	/* Refused means nothing changed: still open. */
 	assert_int_equal(e2e_wait_state(&e, "open", 1000), 0);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /* Nobody at the endpoint: exit 2 once the timeout (-w 300) has passed,
@@ -228,7 +219,7 @@ static void set_then_get_control_gain_shows_new_value(void **st)
 			    "key: control.gain\nvalue: 0.4\nlive: true\n");
 	assert_int_equal(e2e_request(&e, "status"), 1);
 	assert_true(fabs(e2e_reply_number(&e, "result.gain") - 0.4) < 1e-6);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /* A structural option: exit 1, "SECTION.KEY needs a restart" (wt_request.h,
@@ -249,7 +240,7 @@ static void set_structural_option_exits_1_needs_restart(void **st)
 	assert_int_equal(r.status, 0);
 	assert_string_equal(r.out,
 			    "key: sensor.lenslets\nvalue: 16\nlive: false\n");
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /* Frames answered, from a watch line "state=open ... frames=N ...". */
@@ -287,7 +278,7 @@ static void watch_n_2_prints_two_status_lines(void **st)
 	assert_true(watch_frames(second) > watch_frames(r.out));
 	/* daemon.status_hz = 5 in the demo: two messages take ~0.2-0.4 s. */
 	assert_true(r.elapsed_ms < 3000);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /* An unknown word: exit 1 with the parser's reason (wt_request.h,
@@ -304,7 +295,7 @@ static void unknown_word_exits_1_with_reason(void **st)
 	assert_string_equal(r.out, "");
 	assert_string_equal(r.err,
 			    "wavetrim: unknown word 'frobnicate' (try help)\n");
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /*
@@ -357,7 +348,7 @@ static void example_client_prints_daemon_refusal_of_close(void **st)
 	}
 	assert_int_equal(n_status, 3);
 	assert_int_equal(lines(r.out), 6);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 static const struct CMUnitTest tests[] = {

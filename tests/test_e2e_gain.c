@@ -66,15 +66,6 @@ static int autogain_wait(e2e *e, int timeout_ms)
 	return -1;
 }
 
-static void stop_clean(e2e *e)
-{
-	int ds, ss;
-
-	e2e_teardown(e, &ds, &ss);
-	assert_int_equal(ds, 0);
-	assert_int_equal(ss, 0);
-}
-
 static void fixture_calibration_for_gain_tests(void **state)
 {
 	e2e e;
@@ -98,7 +89,7 @@ static void fixture_calibration_for_gain_tests(void **state)
 	assert_true(e2e_reply_number(&e, "result.modes") > 0);
 	assert_int_equal(e2e_request(&e, "save %s", CAL_FILE), 1);
 	assert_int_equal(stat(CAL_FILE, &st), 0);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 static void start_loaded(e2e *e, const char *const *ov)
@@ -203,7 +194,7 @@ static void autogain_is_no_worse_than_best_scalar_gain(void **state)
 	/* no worse, within three combined standard errors */
 	assert_true(auto_rms <=
 		    best + 3 * sqrt(best_sem * best_sem + auto_sem * auto_sem));
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /* Refused with a reason: no control matrix, and a bad argument. */
@@ -225,7 +216,7 @@ static void autogain_refusals(void **state)
 			 0);
 	/* the daemon still answers */
 	assert_int_equal(e2e_request(&e, "ping"), 1);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /* Open loop: the record is the disturbance itself; nothing is applied. */
@@ -248,7 +239,7 @@ static void autogain_from_open_loop_reports_without_applying(void **state)
 	assert_true(e2e_reply_number(&e, "result.predicted.optimised") > 0);
 	assert_int_equal(e2e_request(&e, "get control.mode_gains"), 1);
 	assert_non_null(strstr(e.reply, "\"value\":\"\""));
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /* A closed-loop recording: Python finds every frame closed, commands
@@ -279,11 +270,11 @@ static void closed_loop_recording_python_reads_it(void **state)
 	assert_int_equal(e2e_run(argv, 60000, &r), 0);
 	print_message("%s%s", r.out, r.err);
 	if (r.status == 77) {
-		stop_clean(&e);
+		e2e_stop_clean(&e);
 		skip();
 	}
 	assert_int_equal(r.status, 0);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /*
@@ -338,7 +329,7 @@ static void sweep_tool_prints_table_and_svg(void **state)
 	assert_int_equal(e2e_run(py, 60000, &r), 0);
 	print_message("%s%s", r.out, r.err);
 	assert_int_equal(r.status, 0);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 static const struct CMUnitTest tests[] = {

@@ -46,15 +46,6 @@ static void start_loaded(e2e *e, const char *const *overrides)
 	assert_int_equal(e2e_request(e, "load %s", CAL_FILE), 1);
 }
 
-static void stop_clean(e2e *e)
-{
-	int ds, ss;
-
-	e2e_teardown(e, &ds, &ss);
-	assert_int_equal(ds, 0);
-	assert_int_equal(ss, 0);
-}
-
 static void fixture_calibration_is_measured_and_saved(void **state)
 {
 	e2e e;
@@ -93,7 +84,7 @@ static void fixture_calibration_is_measured_and_saved(void **state)
 	assert_int_equal(e2e_request(&e, "save %s", CAL_FILE), 1);
 	assert_int_equal(stat(CAL_FILE, &st), 0);
 	assert_true(st.st_size > 0);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /*
@@ -125,7 +116,7 @@ static void closed_loop_corrects_static_aberration_below_marechal(void **st)
 	assert_true(rms1 < 920.0 / 14);
 	/* Marechal: S ~ exp(-(2 pi sigma / lambda)^2) > 0.8 at lambda/14. */
 	assert_true(s1 > 0.8);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /* Residual RMS after n frames closed at gain g (loop reopened after). */
@@ -168,7 +159,7 @@ static void delay_two_diverges_at_gain_1_2_converges_at_0_5(void **st)
 		      rms0, good, bad);
 	assert_true(good < rms0 / 10);
 	assert_true(bad > rms0 / 2);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /*
@@ -203,7 +194,7 @@ static void leak_settles_at_predicted_fraction(void **st)
 		      "(predicted %.1f)\n",
 		      rms0, floor_nm, l, leaky, predicted);
 	assert_true(fabs(leaky - predicted) < 0.15 * predicted);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /*
@@ -238,7 +229,7 @@ static void driver_death_faults_and_close_recovers(void **st)
 	assert_int_equal(e2e_truth_skip(&e, 60, &t, 5000), 0);
 	rms = mean_rms(&e, 5, NULL);
 	assert_true(rms < 920.0 / 14);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /*
@@ -276,7 +267,7 @@ static void calibration_file_round_trip_gives_same_residual(void **st)
 	print_message("residual %.2f nm before the restart, %.2f nm after\n",
 		      first, second);
 	assert_true(fabs(first - second) < 0.1 * first + 1.0);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /* A calibration made for another mirror is refused at start, exit 2. */
@@ -344,7 +335,7 @@ static void second_daemon_on_same_endpoints_is_refused(void **st)
 	assert_non_null(strstr(r->err, "in use"));
 	assert_int_equal(e2e_request(&e, "ping"), 1);
 	free(r);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /* SIGTERM while the loop is closed: the daemon sends the flat command and
@@ -438,7 +429,7 @@ static void loop_thread_makes_no_heap_call_in_ten_thousand_closed_frames(
 		}
 		usleep(100000);
 	}
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 	f = fopen(report, "r");
 	assert_non_null(f);
 	assert_int_equal(fscanf(f, "frames %lu calls %lu zmq %lu", &got_frames,

@@ -30,15 +30,6 @@ static void start(e2e *e)
 	assert_int_equal(e2e_sync(e, 5000), 0);
 }
 
-static void stop_clean(e2e *e)
-{
-	int ds, ss;
-
-	e2e_teardown(e, &ds, &ss);
-	assert_int_equal(ds, 0);
-	assert_int_equal(ss, 0);
-}
-
 /* Poll status until result.recording.state is `state`; 0 or -1. */
 static int wait_recording(e2e *e, const char *state, int timeout_ms)
 {
@@ -94,7 +85,7 @@ static void recording_is_complete_and_python_reads_it(void **state)
 	assert_true(e2e_reply_number(&e, "result.recording.frames") == 1000);
 	assert_true(e2e_reply_number(&e, "result.recording.frames_lost") == 0);
 	python_check(file, 1000, "open");
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /* A name that cannot be made is the request's answer; a second recording
@@ -128,7 +119,7 @@ static void recording_refusals_and_stop(void **state)
 	assert_int_equal(e2e_request(&e, "record stop"), 1);
 	assert_int_equal(wait_recording(&e, "stopped", 20000), 0);
 	assert_true(e2e_reply_number(&e, "result.recording.frames") > 0);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /*
@@ -153,7 +144,7 @@ static void full_disk_fails_the_recording_not_the_loop(void **state)
 	if (mount("tmpfs", dir, "tmpfs", 0, "size=256k") != 0) {
 		print_message("cannot mount a tmpfs (%s): skipped\n",
 			      strerror(errno));
-		stop_clean(&e);
+		e2e_stop_clean(&e);
 		skip();
 	}
 	sub = zmq_socket(e.ctx, ZMQ_SUB);
@@ -213,7 +204,7 @@ static void full_disk_fails_the_recording_not_the_loop(void **state)
 	assert_int_equal(wait_recording(&e, "done", 10000), 0);
 	zmq_close(sub);
 	umount2(dir, MNT_DETACH);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 static const struct CMUnitTest tests[] = {

@@ -33,15 +33,6 @@
 
 static const char *const patient[] = {PATIENT, NULL};
 
-static void stop_clean(e2e *e)
-{
-	int ds, ss;
-
-	e2e_teardown(e, &ds, &ss);
-	assert_int_equal(ds, 0);
-	assert_int_equal(ss, 0);
-}
-
 static void start_loaded(e2e *e, const char *const *overrides)
 {
 	assert_int_equal(e2e_setup(e, overrides), 0);
@@ -124,7 +115,7 @@ static void fixture_calibration_is_measured_and_saved(void **state)
 	}
 	assert_true(e2e_reply_number(&e, "result.modes") >= 100);
 	assert_int_equal(e2e_request(&e, "save %s", CAL_FILE), 1);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /*
@@ -163,7 +154,7 @@ static void mode_gains_change_the_loop_live(void **st)
 	assert_int_equal(e2e_request(&e, "set mirror.limit_high 0.9"), 1);
 	assert_int_equal(e2e_request(&e, "set mirror.limit_low 0.95"), 0);
 	reply_has(&e, "must be below");
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /*
@@ -200,7 +191,7 @@ static void reload_applies_changed_live_options(void **st)
 	/* The same file again: nothing to change. */
 	assert_int_equal(e2e_request(&e, "reload"), 1);
 	reply_has(&e, "\"changed\":[]");
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /* A structural change refuses the whole reload, with every reason; the
@@ -227,7 +218,7 @@ static void reload_refuses_structural_changes(void **st)
 	assert_int_equal(e2e_rewrite_daemon_ini(&e, sim_only), 0);
 	assert_int_equal(e2e_request(&e, "reload"), 1);
 	reply_has(&e, "\"changed\":[\"control.gain\"]");
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /* A file that does not read is refused with the loader's FILE:LINE
@@ -258,7 +249,7 @@ static void reload_refuses_broken_and_missing_files(void **st)
 	assert_int_equal(e2e_request(&e, "reload"), 0);
 	reply_has(&e, "No such file");
 	assert_int_equal(rename(moved, e.ini), 0);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /* The next "event " message holding `what` within timeout_ms, into buf. */
@@ -340,7 +331,7 @@ static void sighup_reloads_and_reports(void **st)
 	assert_non_null(strstr(log, "reloaded"));
 	assert_non_null(strstr(log, "sensor.lenslets needs a restart"));
 	zmq_close(sub);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /*
@@ -383,7 +374,7 @@ static void held_defocus_offset_shows_in_truth(void **st)
 	/* The criterion: within 5 % of the offset. */
 	assert_true(fabs((z1 - z0) - 100) <= 5);
 	assert_true(fabs(z2 - z0) <= 5);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /*
@@ -417,7 +408,7 @@ static void shape_puts_defocus_on_the_mirror(void **st)
 	assert_int_equal(e2e_request(&e, "shape zernike 4 100"), 0);
 	reply_has(&e, "open first");
 	assert_int_equal(e2e_request(&e, "open"), 1);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 /*
@@ -458,7 +449,7 @@ static void reference_takes_out_the_sensor_arms_aberration(void **st)
 		      za, zb);
 	assert_true(fabs(za + 80) <= 8);
 	assert_true(fabs(zb) <= 4);
-	stop_clean(&e);
+	e2e_stop_clean(&e);
 }
 
 static const struct CMUnitTest tests[] = {
