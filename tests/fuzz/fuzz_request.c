@@ -399,6 +399,11 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
 		if (req.word == WT_REQ_SAVE || req.word == WT_REQ_LOAD) {
 			FUZZ_CHECK(!strcmp(req.path, r.w[1]),
 				   "path '%s', want '%s'", req.path, r.w[1]);
+		} else if (req.word == WT_REQ_RECORD && r.n == 3) {
+			/* record N FILE: the file is the second argument */
+			FUZZ_CHECK(!strcmp(req.path, r.w[2]),
+				   "record path '%s', want '%s'", req.path,
+				   r.w[2]);
 		} else {
 			FUZZ_CHECK(req.path[0] == '\0', "path for word %d",
 				   req.word);
