@@ -96,16 +96,23 @@ int wt_svd_compute(const double *D, int m, int n, wt_svd **out, wt_error *err)
 		goto fail;
 	}
 
-	/* ?gesdd overwrites its input, so work on a copy. */
+	/*
+	 * ?gesdd overwrites its input, so work on a copy.  The row-major D
+	 * is, read column-major, D^T (n x m): its SVD D^T = U' S V'^T is
+	 * D = V' S U'^T, and column-major U' (n x count) is row-major V^T,
+	 * column-major V'^T (count x m) row-major U.  So LAPACK writes our
+	 * layout directly and LAPACKE has nothing to transpose (its
+	 * row-major path copies D, U and V^T once each way).
+	 */
 	memcpy(a, D, elems * sizeof(*a));
-	info = LAPACKE_dgesdd(LAPACK_ROW_MAJOR, 'S', m, n, a, n, s->sv, s->u,
-			      s->count, s->vt, n);
+	info = LAPACKE_dgesdd(LAPACK_COL_MAJOR, 'S', n, m, a, n, s->sv, s->vt,
+			      n, s->u, s->count);
 	if (info > 0) {
 		/* Divide and conquer can fail on graded matrices; QR iteration
 		 * is slower but more robust. */
 		memcpy(a, D, elems * sizeof(*a));
-		info = LAPACKE_dgesvd(LAPACK_ROW_MAJOR, 'S', 'S', m, n, a, n,
-				      s->sv, s->u, s->count, s->vt, n, superb);
+		info = LAPACKE_dgesvd(LAPACK_COL_MAJOR, 'S', 'S', n, m, a, n,
+				      s->sv, s->vt, n, s->u, s->count, superb);
 	}
 	if (info == LAPACK_WORK_MEMORY_ERROR) {
 		ret = wt_error_set(err, -ENOMEM, "svd: LAPACK out of memory");

@@ -3,7 +3,8 @@
  * machine's memory floor, and which matrix-vector kernel to use.
  *
  *   wavetrim-bench [--frames N] [--systems S,M,L] [--mvm auto|blas|own]
- *                  [--split S,M,L|none] [--cpu N] [--json] [--sweep]
+ *                  [--split S,M,L|none] [--svd S,M,L|none] [--cpu N]
+ *                  [--json] [--sweep]
  *
  * For each reference system it renders one synthetic Shack-Hartmann frame
  * (Gaussian spots at random sub-pixel offsets, seeded) and runs the loop's
@@ -27,6 +28,10 @@
  * CPUs: this thread computes the first half of the rows, a worker pinned
  * to another CPU the second, handed off through a spin-waited sequence
  * number (no sleep, no wake-up).
+ *
+ * --svd times, for the systems listed (L by default), the daemon's build
+ * of the control matrix from a modelled interaction matrix next to a bare
+ * LAPACKE_dgesdd of the same size (tools/bench_svd.h).
  */
 #include <errno.h>
 #include <getopt.h>
@@ -44,8 +49,10 @@
 #include <cblas.h>
 
 #include "bench_stream.h"
+#include "bench_svd.h"
 #include "wt_centroid.h"
 #include "wt_clock.h"
+#include "wt_config.h"
 #include "wt_control.h"
 #include "wt_error.h"
 #include "wt_geometry.h"
@@ -69,6 +76,13 @@
 /* STREAM: at least this many passes of each kernel and this much time. */
 #define STREAM_MIN_PASSES 10
 #define STREAM_BUDGET_NS  (100.0 * WT_NS_PER_MS)
+
+/* The modelled interaction matrix: Gaussian influence of this width in
+ * actuator pitches (about 15 % coupling to the next actuator: common
+ * practice for continuous-facesheet mirrors), and noise of this fraction
+ * of the largest entry. */
+#define SVD_SIGMA_PITCHES 0.5
+#define SVD_NOISE_REL	  1e-3
 
 /* One reference system. */
 struct system_def {
@@ -103,6 +117,8 @@ struct options {
 	long warmup;
 	unsigned systems; /* bit i: systems[i] */
 	unsigned split;	  /* bit i: also run systems[i] split over 2 CPUs */
+	unsigned svd;	  /* bit i: time the control matrix of systems[i] */
+	long svd_runs;
 	enum wt_mvm_kind mvm;
 	int cpu;	/* -1: the last CPU we may run on */
 	int worker_cpu; /* -1: another CPU we may run on */
@@ -153,6 +169,9 @@ struct bench_system {
 	struct result_stage split;
 	double split_max_diff;
 	int split_row;
+
+	bool svd_done;
+	struct bench_svd svd;
 };
 
 /* ---- small helpers ------------------------------------------------------ */
@@ -696,6 +715,40 @@ static int system_measure(struct bench_system *b, const struct options *opt,
 	return 0;
 }
 
+/* The control matrix from a modelled interaction matrix, as the daemon
+ * builds it with its default options, and a bare SVD of it. */
+static int system_svd(struct bench_system *b, const struct options *opt,
+		      wt_error *err)
+{
+	wt_config *cfg = NULL;
+	double *D;
+	int ret;
+
+	D = malloc((size_t)b->n_slopes * b->n_act * sizeof(*D));
+	if (!D) {
+		return wt_error_set(err, -ENOMEM, "out of memory");
+	}
+	ret = wt_config_create(&cfg, err);
+	if (ret < 0) {
+		free(D);
+		return ret;
+	}
+	bench_svd_model(b->lenslets, b->actuators, SVD_SIGMA_PITCHES,
+			SVD_NOISE_REL, opt->seed, D);
+	fprintf(stderr,
+		"%s: control matrix from a %d x %d matrix, %ld runs ...\n",
+		b->def->name, b->n_slopes, b->n_act, opt->svd_runs);
+	ret = bench_svd_measure(
+		D, b->n_slopes, b->n_act, (int)opt->svd_runs,
+		(int)wt_config_int(cfg, WT_OPT_CONTROL_MODES),
+		wt_config_double(cfg, WT_OPT_CONTROL_MIN_SV_RATIO), &b->svd,
+		err);
+	b->svd_done = ret == 0;
+	wt_config_destroy(cfg);
+	free(D);
+	return ret;
+}
+
 /* ---- output ------------------------------------------------------------- */
 
 static const char *layout_name(enum wt_layout l)
@@ -820,6 +873,26 @@ static void print_table(struct bench_system *bs, int n,
 			       b->split_row, b->split_max_diff);
 		}
 		printf("\n");
+	}
+	for (i = 0; i < n; i++) {
+		const struct bench_svd *v = &bs[i].svd;
+
+		if (!bs[i].svd_done) {
+			continue;
+		}
+		printf("%s: control matrix from the %d x %d interaction matrix "
+		       "(best of %d, %d BLAS thread(s)):\n"
+		       "  bare LAPACKE_dgesdd      %10.1f ms\n"
+		       "  daemon: wt_svd_compute   %10.1f ms\n"
+		       "          modes + pinv     %10.1f ms   (%d modes kept, "
+		       "condition %.3g)\n"
+		       "          total            %10.1f ms   %.2f x the bare "
+		       "SVD; singular values agree to %.1e of s1\n\n",
+		       bs[i].def->name, v->m, v->n, v->runs,
+		       openblas_get_num_threads(), v->bare_ns / 1e6,
+		       v->svd_ns / 1e6, v->pinv_ns / 1e6, v->kept, v->cond,
+		       v->total_ns / 1e6, v->total_ns / v->bare_ns,
+		       v->sv_max_rel);
 	}
 	printf("%-6s %12s %12s %12s %12s %10s %10s\n", "system", "total p50",
 	       "total p99", "total max", "floor", "p50/floor", "p99/floor");
@@ -1036,6 +1109,34 @@ static int print_json(struct bench_system *bs, int n, const struct options *opt,
 			json_stage(&j, "timing", &b->split, b->floor_ns);
 			wt_json_object_end(&j);
 		}
+		if (b->svd_done) {
+			wt_json_key(&j, "control_matrix");
+			wt_json_object_begin(&j);
+			wt_json_key(&j, "rows");
+			wt_json_int(&j, b->svd.m);
+			wt_json_key(&j, "cols");
+			wt_json_int(&j, b->svd.n);
+			wt_json_key(&j, "runs");
+			wt_json_int(&j, b->svd.runs);
+			wt_json_key(&j, "bare_dgesdd_ns");
+			wt_json_double_prec(&j, b->svd.bare_ns, 6);
+			wt_json_key(&j, "svd_ns");
+			wt_json_double_prec(&j, b->svd.svd_ns, 6);
+			wt_json_key(&j, "pinv_ns");
+			wt_json_double_prec(&j, b->svd.pinv_ns, 6);
+			wt_json_key(&j, "total_ns");
+			wt_json_double_prec(&j, b->svd.total_ns, 6);
+			wt_json_key(&j, "total_over_bare");
+			wt_json_double_prec(
+				&j, b->svd.total_ns / b->svd.bare_ns, 4);
+			wt_json_key(&j, "modes_kept");
+			wt_json_int(&j, b->svd.kept);
+			wt_json_key(&j, "condition");
+			wt_json_double_prec(&j, b->svd.cond, 6);
+			wt_json_key(&j, "sv_max_rel_diff");
+			wt_json_double(&j, b->svd.sv_max_rel);
+			wt_json_object_end(&j);
+		}
 		wt_json_object_end(&j);
 	}
 	wt_json_array_end(&j);
@@ -1082,6 +1183,11 @@ static void usage(FILE *out)
 		"      --split LIST     systems whose product is also run "
 		"split over two CPUs\n"
 		"                       (default L; none for none)\n"
+		"      --svd LIST       systems whose control-matrix build is\n"
+		"                       timed against a bare LAPACKE_dgesdd\n"
+		"                       (default L; none to skip)\n"
+		"      --svd-runs N     runs of each, the fastest kept "
+		"(default 2)\n"
 		"  -c, --cpu N          CPU to pin to (default: the last one "
 		"allowed)\n"
 		"      --worker-cpu N   CPU of the split worker (default: "
@@ -1143,7 +1249,15 @@ static int parse_systems(const char *s, unsigned *out)
 	return 0;
 }
 
-enum { OPT_SPLIT = 256, OPT_WORKER_CPU, OPT_SEED, OPT_SWEEP, OPT_JSON };
+enum {
+	OPT_SPLIT = 256,
+	OPT_WORKER_CPU,
+	OPT_SEED,
+	OPT_SWEEP,
+	OPT_JSON,
+	OPT_SVD,
+	OPT_SVD_RUNS,
+};
 
 static int parse_args(int argc, char **argv, struct options *opt)
 {
@@ -1153,6 +1267,8 @@ static int parse_args(int argc, char **argv, struct options *opt)
 		{"systems", required_argument, NULL, 's'},
 		{"mvm", required_argument, NULL, 'm'},
 		{"split", required_argument, NULL, OPT_SPLIT},
+		{"svd", required_argument, NULL, OPT_SVD},
+		{"svd-runs", required_argument, NULL, OPT_SVD_RUNS},
 		{"cpu", required_argument, NULL, 'c'},
 		{"worker-cpu", required_argument, NULL, OPT_WORKER_CPU},
 		{"seed", required_argument, NULL, OPT_SEED},
@@ -1168,6 +1284,8 @@ static int parse_args(int argc, char **argv, struct options *opt)
 	opt->warmup = 500;
 	opt->systems = (1u << N_SYSTEMS) - 1;
 	opt->split = 1u << 2; /* L */
+	opt->svd = 1u << 2;   /* L */
+	opt->svd_runs = 2;
 	opt->mvm = WT_MVM_AUTO;
 	opt->cpu = -1;
 	opt->worker_cpu = -1;
@@ -1200,6 +1318,19 @@ static int parse_args(int argc, char **argv, struct options *opt)
 			if (parse_systems(optarg, &opt->split)) {
 				fprintf(stderr, "--split: a list of S, M, L, "
 						"or none\n");
+				return -EINVAL;
+			}
+			break;
+		case OPT_SVD:
+			if (parse_systems(optarg, &opt->svd)) {
+				fprintf(stderr, "--svd: a list of S, M, L, "
+						"or none\n");
+				return -EINVAL;
+			}
+			break;
+		case OPT_SVD_RUNS:
+			if (parse_long(optarg, 1, 100, &opt->svd_runs)) {
+				fprintf(stderr, "--svd-runs: 1 .. 100\n");
 				return -EINVAL;
 			}
 			break;
@@ -1307,6 +1438,9 @@ int main(int argc, char **argv)
 		ret = system_setup(&bs[n], &systems[i], &opt, &err);
 		if (ret == 0) {
 			ret = system_measure(&bs[n], &opt, worker_cpu, &err);
+		}
+		if (ret == 0 && (opt.svd & (1u << i))) {
+			ret = system_svd(&bs[n], &opt, &err);
 		}
 		if (ret < 0) {
 			fprintf(stderr, "%s: %s\n", systems[i].name, err.msg);
