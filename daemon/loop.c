@@ -60,9 +60,9 @@ struct wtd_loop {
 	const float *offset;	/* n_slopes, control-owned; NULL: none */
 	float *lo, *hi;		/* n_act: the mirror's limits */
 	float *lo_rel, *hi_rel; /* n_act: limits minus the flat */
-	float *delta;	 /* n_act: integrator output (offset from flat) */
-	float *cmd;	 /* n_act: command being built */
-	float *last_cmd; /* n_act: command sent last */
+	float *delta;	  /* n_act: integrator output (offset from flat) */
+	float *cmd;	  /* n_act: command being built */
+	float *last_cmd;  /* n_act: command sent last */
 	uint8_t *sendbuf; /* WTD_SEND_BUFFERS x send_len */
 	size_t send_len;
 	unsigned send_next; /* buffer of the next command */
@@ -78,6 +78,7 @@ struct wtd_loop {
 	int max_bad;
 	int decimation;
 	uint16_t full_scale; /* sensor.full_scale: a pixel saturates here */
+	bool busy_poll;	     /* daemon.busy_poll: spin, never sleep */
 	int min_valid;	     /* fewer valid subapertures: a dark frame */
 
 	/* frame ids */
@@ -197,6 +198,7 @@ int wtd_loop_create(struct wtd *d, wt_error *err)
 	l->max_bad = (int)wt_config_int(cfg, WT_OPT_SAFETY_MAX_BAD_FRAMES);
 	l->decimation = (int)wt_config_int(cfg, WT_OPT_DAEMON_FRAME_DECIMATION);
 	l->full_scale = (uint16_t)wt_config_int(cfg, WT_OPT_SENSOR_FULL_SCALE);
+	l->busy_poll = wt_config_bool(cfg, WT_OPT_DAEMON_BUSY_POLL);
 	l->min_valid = (int)ceil(
 		wt_config_double(cfg, WT_OPT_SAFETY_MIN_VALID_FRACTION) *
 		d->n_subaps);
@@ -343,8 +345,8 @@ static int send_command(struct wtd_loop *l, uint64_t seq, int *clamped)
 	       sizeof(float) * (size_t)d->n_act);
 	memcpy(l->last_cmd, l->cmd, sizeof(float) * (size_t)d->n_act);
 	h.timestamp_ns = wt_clock_ns();
-	if (wt_proto_encode(&h, buf + WT_PROTO_HEADER_BYTES, buf,
-			    l->send_len) < 0) {
+	if (wt_proto_encode(&h, buf + WT_PROTO_HEADER_BYTES, buf, l->send_len) <
+	    0) {
 		return -1;
 	}
 	/* No free function: a constant message, nothing allocated. */
@@ -922,14 +924,13 @@ static void process(struct wtd_loop *l, const void *data, size_t len,
 		bump(&d->c.tm_dropped, 1);
 	} else {
 		s->type = WTD_SLOT_FRAME;
-		s->has_arrays =
-			(l->answered % (uint64_t)l->decimation == 0
-				 ? WTD_ARRAYS_PUBLISH
-				 : 0) |
-			(atomic_load_explicit(&d->want_arrays,
-					      memory_order_relaxed) > 0
-				 ? WTD_ARRAYS_RECORD
-				 : 0);
+		s->has_arrays = (l->answered % (uint64_t)l->decimation == 0
+					 ? WTD_ARRAYS_PUBLISH
+					 : 0) |
+				(atomic_load_explicit(&d->want_arrays,
+						      memory_order_relaxed) > 0
+					 ? WTD_ARRAYS_RECORD
+					 : 0);
 		memcpy(s->fr.magic, WT_FRAME_MAGIC, 4);
 		s->fr.version = WT_FRAME_VERSION;
 		s->fr.state = (uint16_t)l->state;
@@ -983,8 +984,7 @@ static void stop_drain(struct wtd_loop *l, zmq_pollitem_t *item)
 		rc = zmq_recv(l->d->s_frames, l->recvbuf, l->recv_len,
 			      ZMQ_DONTWAIT);
 		if (rc < 0 || (size_t)rc > l->recv_len ||
-		    wt_proto_decode(l->recvbuf, (size_t)rc, &h, &payload) <
-			    0 ||
+		    wt_proto_decode(l->recvbuf, (size_t)rc, &h, &payload) < 0 ||
 		    h.kind == WT_KIND_COMMAND_F32 ||
 		    (l->have_id && h.sequence <= l->last_id)) {
 			continue;
@@ -996,6 +996,37 @@ static void stop_drain(struct wtd_loop *l, zmq_pollitem_t *item)
 }
 
 /* --- the thread ----------------------------------------------------------- */
+
+static inline void cpu_relax(void)
+{
+#if defined(__x86_64__) || defined(__i386__)
+	__builtin_ia32_pause();
+#endif
+}
+
+/*
+ * The next frame into l->recvbuf: its length (which may exceed recv_len:
+ * cut short), or -EAGAIN (none yet), -ETERM or -EINTR.  Normally sleeps in
+ * zmq_poll up to WTD_POLL_MS; with daemon.busy_poll it only tries a
+ * non-blocking receive, so the thread never sleeps and a frame is taken
+ * without a wake-up (the caller spins).
+ */
+static int next_frame(struct wtd_loop *l, zmq_pollitem_t *item)
+{
+	int rc;
+
+	if (!l->busy_poll) {
+		rc = zmq_poll(item, 1, WTD_POLL_MS);
+		if (rc < 0) {
+			return -zmq_errno();
+		}
+		if (rc == 0 || !(item->revents & ZMQ_POLLIN)) {
+			return -EAGAIN;
+		}
+	}
+	rc = zmq_recv(l->d->s_frames, l->recvbuf, l->recv_len, ZMQ_DONTWAIT);
+	return rc < 0 ? -zmq_errno() : rc;
+}
 
 /* Defined only by tests/alloc_probe.c, which counts heap calls. */
 void wtd_alloc_probe(uint64_t answered, int state) __attribute__((weak));
@@ -1013,28 +1044,30 @@ void *wtd_loop_main(void *arg)
 		int rc;
 
 		apply_mailbox(l);
-		rc = zmq_poll(&item, 1, WTD_POLL_MS);
+		rc = next_frame(l, &item);
 		now = wt_clock_ns();
 		if (rc < 0) {
-			if (zmq_errno() == ETERM) {
+			if (rc == -ETERM) {
 				break;
+			}
+			if (rc == -EAGAIN) {
+				check_silence(l, now);
+				if (l->busy_poll) {
+					cpu_relax();
+				}
 			}
 			continue; /* EINTR: check the stop flag */
 		}
-		if (rc > 0 && (item.revents & ZMQ_POLLIN)) {
-			rc = zmq_recv(d->s_frames, l->recvbuf, l->recv_len,
-				      ZMQ_DONTWAIT);
-			if (rc >= 0 && (size_t)rc > l->recv_len) {
-				/* longer than any valid frame: cut short */
-				bump(&d->c.received, 1);
-				count_refusal(l, -WT_EPROTO_LENGTH);
-				bad_frame(l);
-			} else if (rc >= 0) {
-				process(l, l->recvbuf, (size_t)rc, now);
-			}
-			if (rc >= 0 && wtd_alloc_probe) {
-				wtd_alloc_probe(l->answered, l->state);
-			}
+		if ((size_t)rc > l->recv_len) {
+			/* longer than any valid frame: cut short */
+			bump(&d->c.received, 1);
+			count_refusal(l, -WT_EPROTO_LENGTH);
+			bad_frame(l);
+		} else {
+			process(l, l->recvbuf, (size_t)rc, now);
+		}
+		if (wtd_alloc_probe) {
+			wtd_alloc_probe(l->answered, l->state);
 		}
 		check_silence(l, wt_clock_ns());
 	}

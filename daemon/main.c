@@ -352,10 +352,9 @@ static void set_up_access(struct wtd *d, char driver_public[WT_KEY_TEXT],
 /* --- the loop thread's scheduling
  * --------------------------------------------- */
 
-static int start_loop(struct wtd *d, pthread_t *th)
+/* The loop thread on CPU cpu (-1: any) at SCHED_FIFO prio (0: normal). */
+static int spawn_loop(struct wtd *d, pthread_t *th, long cpu, long prio)
 {
-	long cpu = wt_config_int(d->cfg, WT_OPT_DAEMON_CPU);
-	long prio = wt_config_int(d->cfg, WT_OPT_DAEMON_REALTIME_PRIORITY);
 	pthread_attr_t attr;
 	int rc;
 
@@ -376,14 +375,47 @@ static int start_loop(struct wtd *d, pthread_t *th)
 	}
 	rc = pthread_create(th, &attr, wtd_loop_main, d);
 	pthread_attr_destroy(&attr);
-	if (rc != 0 && (cpu >= 0 || prio > 0)) {
-		wt_log_warning(d->log,
-			       "loop thread: cpu %ld / SCHED_FIFO %ld not "
-			       "granted (%s); running without",
-			       cpu, prio, strerror(rc));
-		rc = pthread_create(th, NULL, wtd_loop_main, d);
+	if (rc == 0) {
+		/* for top -H, ps -L and the tests */
+		pthread_setname_np(*th, "wtd-loop");
 	}
 	return rc;
+}
+
+/*
+ * The loop thread with daemon.cpu and daemon.realtime_priority.  What is
+ * not granted is dropped with one warning saying what and why: first the
+ * priority (most often refused: no CAP_SYS_NICE), then the pinning (a CPU
+ * outside the allowed set), then both.
+ */
+static int start_loop(struct wtd *d, pthread_t *th)
+{
+	long cpu = wt_config_int(d->cfg, WT_OPT_DAEMON_CPU);
+	long prio = wt_config_int(d->cfg, WT_OPT_DAEMON_REALTIME_PRIORITY);
+	int rc = spawn_loop(d, th, cpu, prio);
+
+	if (rc == 0 || (cpu < 0 && prio <= 0)) {
+		return rc;
+	}
+	if (prio > 0 && spawn_loop(d, th, cpu, 0) == 0) {
+		wt_log_warning(d->log,
+			       "loop thread: SCHED_FIFO priority %ld not "
+			       "granted (%s); normal scheduling",
+			       prio, strerror(rc));
+		return 0;
+	}
+	if (cpu >= 0 && spawn_loop(d, th, -1, prio) == 0) {
+		wt_log_warning(d->log,
+			       "loop thread: CPU %ld not granted (%s); not "
+			       "pinned",
+			       cpu, strerror(rc));
+		return 0;
+	}
+	wt_log_warning(d->log,
+		       "loop thread: neither CPU %ld nor SCHED_FIFO priority "
+		       "%ld granted (%s); running without",
+		       cpu, prio, strerror(rc));
+	return spawn_loop(d, th, -1, 0);
 }
 
 /* --- main

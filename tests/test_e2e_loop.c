@@ -8,7 +8,9 @@
  */
 #include "wt_test.h"
 
+#include <dirent.h>
 #include <math.h>
+#include <sched.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <signal.h>
@@ -62,7 +64,8 @@ static void fixture_calibration_is_measured_and_saved(void **state)
 	assert_int_equal(e2e_reply_string(&e, "error", buf, sizeof(buf)), 0);
 	/* No `reference` here: it would measure the sample's aberration as
 	 * the target.  The simulator's sensor has no aberration of its own, so
-	 * the default reference (spots on the lenslet axes) is the right one. */
+	 * the default reference (spots on the lenslet axes) is the right one.
+	 */
 	assert_int_equal(e2e_request(&e, "calibrate"), 1);
 	assert_int_equal(e2e_wait_state(&e, "calibrating", 5000), 0);
 	assert_int_equal(e2e_wait_state(&e, "open", 280000), 0);
@@ -79,8 +82,7 @@ static void fixture_calibration_is_measured_and_saved(void **state)
 	 * registered continuous-facesheet mirror). */
 	assert_true(e2e_reply_number(&e, "result.modes") >= 100);
 	assert_true(e2e_reply_number(&e, "result.modes") <= 140);
-	assert_true(e2e_reply_number(&e, "result.calibration.condition") <
-		    100);
+	assert_true(e2e_reply_number(&e, "result.calibration.condition") < 100);
 	assert_int_equal(e2e_request(&e, "save %s", CAL_FILE), 1);
 	assert_int_equal(stat(CAL_FILE, &st), 0);
 	assert_true(st.st_size > 0);
@@ -94,8 +96,8 @@ static void fixture_calibration_is_measured_and_saved(void **state)
  */
 static void closed_loop_corrects_static_aberration_below_marechal(void **st)
 {
-	static const char *const ov[] = {"control.gain=0.5",
-					 "control.leak=0", NULL};
+	static const char *const ov[] = {"control.gain=0.5", "control.leak=0",
+					 NULL};
 	e2e e;
 	sim_truth t;
 	double rms0, s0, rms1, s1;
@@ -143,8 +145,7 @@ static double residual_at_gain(e2e *e, double g, int n)
  */
 static void delay_two_diverges_at_gain_1_2_converges_at_0_5(void **st)
 {
-	static const char *const ov[] = {"sim.delay=2", "control.leak=0",
-					 NULL};
+	static const char *const ov[] = {"sim.delay=2", "control.leak=0", NULL};
 	e2e e;
 	double rms0, good, bad;
 
@@ -170,8 +171,8 @@ static void delay_two_diverges_at_gain_1_2_converges_at_0_5(void **st)
  */
 static void leak_settles_at_predicted_fraction(void **st)
 {
-	static const char *const ov[] = {"control.gain=0.5",
-					 "control.leak=0", NULL};
+	static const char *const ov[] = {"control.gain=0.5", "control.leak=0",
+					 NULL};
 	e2e e;
 	sim_truth t;
 	double rms0, floor_nm, leaky, predicted;
@@ -192,10 +193,9 @@ static void leak_settles_at_predicted_fraction(void **st)
 	/* Leaky integrator steady state (common practice): the correctable
 	 * part sqrt(rms0^2 - floor^2) is left at l / (g + l), in quadrature
 	 * with the floor. */
-	predicted = sqrt(pow(sqrt(rms0 * rms0 - floor_nm * floor_nm) * l /
-				     (g + l),
-			     2) +
-			 floor_nm * floor_nm);
+	predicted = sqrt(
+		pow(sqrt(rms0 * rms0 - floor_nm * floor_nm) * l / (g + l), 2) +
+		floor_nm * floor_nm);
 	print_message("open %.1f nm, floor %.1f nm, leak %.2f -> %.1f nm "
 		      "(predicted %.1f)\n",
 		      rms0, floor_nm, l, leaky, predicted);
@@ -228,9 +228,8 @@ static void driver_death_faults_and_close_recovers(void **st)
 	assert_int_equal(e2e_start_sim(&e), 0);
 	/* The daemon stays in fault until told otherwise. */
 	assert_int_equal(e2e_request(&e, "status"), 1);
-	assert_int_equal(e2e_reply_string(&e, "result.state", state,
-					  sizeof(state)),
-			 0);
+	assert_int_equal(
+		e2e_reply_string(&e, "result.state", state, sizeof(state)), 0);
 	assert_string_equal(state, "fault");
 	assert_int_equal(e2e_request(&e, "close"), 1);
 	assert_int_equal(e2e_sync(&e, 5000), 0);
@@ -246,8 +245,8 @@ static void driver_death_faults_and_close_recovers(void **st)
  */
 static void calibration_file_round_trip_gives_same_residual(void **st)
 {
-	static const char *const ov[] = {"control.gain=0.5",
-					 "control.leak=0", NULL};
+	static const char *const ov[] = {"control.gain=0.5", "control.leak=0",
+					 NULL};
 	char again[256];
 	e2e e;
 	sim_truth t;
@@ -283,7 +282,7 @@ static void daemon_refuses_calibration_of_other_dimensions(void **st)
 {
 	static const char *const ov[] = {"mirror.actuators=10", NULL};
 	char *argv[] = {(char *)WT_DAEMON_BIN, "-c", NULL, "--calibration",
-			(char *)CAL_FILE, NULL};
+			(char *)CAL_FILE,      NULL};
 	e2e e;
 	int status;
 	pid_t pid;
@@ -394,8 +393,8 @@ static void sigterm_sends_flat_and_exits_zero(void **st)
  * are counted apart and printed.  Geometric spots keep the simulator
  * quick; a long driver timeout keeps a loaded machine from faulting it.
  */
-static void loop_thread_makes_no_heap_call_in_ten_thousand_closed_frames(
-	void **st)
+static void
+loop_thread_makes_no_heap_call_in_ten_thousand_closed_frames(void **st)
 {
 	static const char *const ov[] = {"camera.spot_model=geometric",
 					 "driver.timeout_ms=60000", NULL};
@@ -408,7 +407,8 @@ static void loop_thread_makes_no_heap_call_in_ten_thousand_closed_frames(
 
 	(void)st;
 	assert_int_equal(e2e_setup(&e, ov), 0);
-	snprintf(report, sizeof(report), "%s", WT_BINARY_DIR "/tests/alloc-report.txt");
+	snprintf(report, sizeof(report), "%s",
+		 WT_BINARY_DIR "/tests/alloc-report.txt");
 	unlink(report);
 	assert_int_equal(e2e_start_sim(&e), 0);
 	setenv("LD_PRELOAD", WT_ALLOC_PROBE, 1);
@@ -455,6 +455,175 @@ static void loop_thread_makes_no_heap_call_in_ten_thousand_closed_frames(
 	assert_int_equal(calls, 0);
 }
 
+/* Open loop, then closed: the truth RMS before and after (nm). */
+static void close_and_measure(e2e *e, double *rms_open, double *rms_closed)
+{
+	sim_truth t;
+
+	assert_int_equal(e2e_sync(e, 5000), 0);
+	*rms_open = mean_rms(e, 10, NULL);
+	assert_int_equal(e2e_request(e, "close"), 1);
+	assert_int_equal(e2e_sync(e, 5000), 0);
+	assert_int_equal(e2e_truth_skip(e, 50, &t, 5000), 0);
+	*rms_closed = mean_rms(e, 5, NULL);
+}
+
+/* The thread of process pid named name (pthread_setname_np), or -1. */
+static pid_t thread_named(pid_t pid, const char *name)
+{
+	char path[320], comm[32];
+	struct dirent *de;
+	pid_t tid = -1;
+	DIR *dir;
+
+	snprintf(path, sizeof(path), "/proc/%d/task", (int)pid);
+	dir = opendir(path);
+	assert_non_null(dir);
+	while (tid < 0 && (de = readdir(dir)) != NULL) {
+		FILE *f;
+
+		if (de->d_name[0] == '.') {
+			continue;
+		}
+		snprintf(path, sizeof(path), "/proc/%d/task/%s/comm", (int)pid,
+			 de->d_name);
+		f = fopen(path, "r");
+		if (f && fgets(comm, sizeof(comm), f)) {
+			comm[strcspn(comm, "\n")] = '\0';
+			if (strcmp(comm, name) == 0) {
+				tid = (pid_t)atoi(de->d_name);
+			}
+		}
+		if (f) {
+			fclose(f);
+		}
+	}
+	closedir(dir);
+	return tid;
+}
+
+/* Lines of the daemon's log that contain text. */
+static int log_lines_with(const e2e *e, const char *text)
+{
+	char path[256], line[1024];
+	int n = 0;
+	FILE *f;
+
+	snprintf(path, sizeof(path), "%s/daemon.log", e->dir);
+	f = fopen(path, "r");
+	assert_non_null(f);
+	while (fgets(line, sizeof(line), f)) {
+		n += strstr(line, text) != NULL;
+	}
+	fclose(f);
+	return n;
+}
+
+/* kB of locked memory (VmLck) of process pid. */
+static long locked_kib(pid_t pid)
+{
+	char path[64], line[256];
+	long kib = -1;
+	FILE *f;
+
+	snprintf(path, sizeof(path), "/proc/%d/status", (int)pid);
+	f = fopen(path, "r");
+	assert_non_null(f);
+	while (fgets(line, sizeof(line), f)) {
+		if (sscanf(line, "VmLck: %ld", &kib) == 1) {
+			break;
+		}
+	}
+	fclose(f);
+	return kib;
+}
+
+/*
+ * The real-time set-up from the config: the loop thread pinned to the
+ * CPU asked for, SCHED_FIFO at the priority asked for, memory locked, the
+ * frame socket busy-polled; and the loop corrects as well as without
+ * (truth).  Where the machine does not grant a setting (no CAP_SYS_NICE or
+ * CAP_IPC_LOCK), the daemon's one warning for it is checked instead.
+ */
+static void realtime_settings_are_applied_and_loop_corrects(void **st)
+{
+	char cpu_opt[32];
+	const char *ov[] = {"control.gain=0.5",
+			    "control.leak=0",
+			    cpu_opt,
+			    "daemon.realtime_priority=3",
+			    "daemon.lock_memory=true",
+			    "daemon.busy_poll=true",
+			    NULL};
+	cpu_set_t allowed, got;
+	int cpu = -1;
+	double rms0, rms1;
+	pid_t tid;
+	e2e e;
+
+	(void)st;
+	assert_int_equal(sched_getaffinity(0, sizeof(allowed), &allowed), 0);
+	for (int c = 0; c < CPU_SETSIZE; c++) {
+		cpu = CPU_ISSET(c, &allowed) ? c : cpu; /* the last allowed */
+	}
+	snprintf(cpu_opt, sizeof(cpu_opt), "daemon.cpu=%d", cpu);
+	start_loaded(&e, ov);
+	tid = thread_named(e.daemon, "wtd-loop");
+	assert_true(tid > 0);
+	assert_int_equal(sched_getaffinity(tid, sizeof(got), &got), 0);
+	assert_int_equal(CPU_COUNT(&got), 1);
+	assert_true(CPU_ISSET(cpu, &got));
+	if (log_lines_with(&e, "SCHED_FIFO priority 3 not granted") == 0) {
+		struct sched_param sp;
+
+		assert_int_equal(sched_getscheduler(tid), SCHED_FIFO);
+		assert_int_equal(sched_getparam(tid, &sp), 0);
+		assert_int_equal(sp.sched_priority, 3);
+	} else {
+		print_message("SCHED_FIFO not granted here: warned once\n");
+		assert_int_equal(log_lines_with(&e, "not granted"), 1);
+	}
+	if (log_lines_with(&e, "mlockall") == 0) {
+		assert_true(locked_kib(e.daemon) > 0);
+	}
+	close_and_measure(&e, &rms0, &rms1);
+	print_message("busy-polled, pinned to CPU %d: open %.1f nm -> closed "
+		      "%.1f nm\n",
+		      cpu, rms0, rms1);
+	/* the same criteria as the case without these settings above */
+	assert_true(rms0 > 300);
+	assert_true(rms1 <= rms0 / 10);
+	assert_true(rms1 < 920.0 / 14);
+	e2e_stop_clean(&e);
+}
+
+/* A CPU the daemon may not use: one warning, the loop runs unpinned. */
+static void cpu_not_granted_warns_once_and_loop_runs(void **st)
+{
+	static const char *const ov[] = {"control.gain=0.5", "control.leak=0",
+					 "daemon.cpu=1023", NULL};
+	cpu_set_t allowed, got;
+	double rms0, rms1;
+	pid_t tid;
+	e2e e;
+
+	(void)st;
+	assert_int_equal(sched_getaffinity(0, sizeof(allowed), &allowed), 0);
+	if (CPU_ISSET(1023, &allowed)) {
+		skip(); /* a machine with 1024 CPUs: nothing to refuse */
+	}
+	start_loaded(&e, ov);
+	assert_int_equal(log_lines_with(&e, "CPU 1023 not granted"), 1);
+	assert_int_equal(log_lines_with(&e, "not granted"), 1);
+	tid = thread_named(e.daemon, "wtd-loop");
+	assert_true(tid > 0);
+	assert_int_equal(sched_getaffinity(tid, sizeof(got), &got), 0);
+	assert_true(CPU_EQUAL(&got, &allowed));
+	close_and_measure(&e, &rms0, &rms1);
+	assert_true(rms1 <= rms0 / 10);
+	e2e_stop_clean(&e);
+}
+
 static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(fixture_calibration_is_measured_and_saved),
 	cmocka_unit_test(closed_loop_corrects_static_aberration_below_marechal),
@@ -468,6 +637,8 @@ static const struct CMUnitTest tests[] = {
 	cmocka_unit_test(sigterm_sends_flat_and_exits_zero),
 	cmocka_unit_test(
 		loop_thread_makes_no_heap_call_in_ten_thousand_closed_frames),
+	cmocka_unit_test(realtime_settings_are_applied_and_loop_corrects),
+	cmocka_unit_test(cpu_not_granted_warns_once_and_loop_runs),
 };
 
 WT_TEST_MAIN(tests)

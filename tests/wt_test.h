@@ -15,6 +15,7 @@
 #include <stdint.h>
 #include <stdio.h>
 #include <stdlib.h>
+#include <string.h>
 
 #include <cmocka.h>
 
@@ -71,10 +72,24 @@ static inline double wt_rng_gauss(void)
 	return r * cos(2.0 * M_PI * wt_rng_uniform());
 }
 
+/* A name that is no case of this file (a stale binary, a renamed case) is
+ * a failure, not "0 tests passed". */
 #define WT_TEST_MAIN(tests)                                                  \
 	int main(int argc, char **argv)                                      \
 	{                                                                    \
 		if (argc > 1) {                                              \
+			size_t k, n = sizeof(tests) / sizeof(tests[0]);      \
+                                                                             \
+			for (k = 0; k < n; k++) {                            \
+				if (!strcmp(tests[k].name, argv[1])) {       \
+					break;                               \
+				}                                            \
+			}                                                    \
+			if (k == n) {                                        \
+				fprintf(stderr, "no case named %s\n",       \
+					argv[1]);                            \
+				return 1;                                    \
+			}                                                    \
 			cmocka_set_test_filter(argv[1]);                     \
 		}                                                            \
 		return cmocka_run_group_tests(tests, NULL, NULL);            \
