@@ -366,6 +366,15 @@ static int start_loop(struct wtd *d, pthread_t *th)
 		CPU_ZERO(&set);
 		CPU_SET((int)cpu, &set);
 		pthread_attr_setaffinity_np(&attr, sizeof(set), &set);
+	} else if (d->split_cpu >= 0) {
+		/* not pinned, but never on the split worker's CPU: it would
+		 * then wait on a worker it keeps from running */
+		cpu_set_t set;
+
+		if (sched_getaffinity(0, sizeof(set), &set) == 0) {
+			CPU_CLR(d->split_cpu, &set);
+			pthread_attr_setaffinity_np(&attr, sizeof(set), &set);
+		}
 	}
 	if (prio > 0) {
 		struct sched_param sp = {.sched_priority = (int)prio};
@@ -376,7 +385,7 @@ static int start_loop(struct wtd *d, pthread_t *th)
 	}
 	rc = pthread_create(th, &attr, wtd_loop_main, d);
 	pthread_attr_destroy(&attr);
-	if (rc != 0 && (cpu >= 0 || prio > 0)) {
+	if (rc != 0 && (cpu >= 0 || prio > 0 || d->split_cpu >= 0)) {
 		wt_log_warning(d->log,
 			       "loop thread: cpu %ld / SCHED_FIFO %ld not "
 			       "granted (%s); running without",

@@ -570,6 +570,11 @@ static int system_measure(struct bench_system *b, const struct options *opt,
 	free(t);
 
 	if ((opt->split & (1u << (b->def - systems))) && worker_cpu >= 0) {
+		wt_mvm_split_params sparams = {
+			.split_row = -1,
+			.cpu = worker_cpu,
+			.spin_ns = WT_MVM_SPLIT_SPIN_NS_DEFAULT,
+		};
 		wt_mvm_split *sp;
 		wt_mvm_split_stats sst;
 
@@ -578,12 +583,6 @@ static int system_measure(struct bench_system *b, const struct options *opt,
 			"%d and %d ...\n",
 			b->def->name, opt->warmup + opt->frames, opt->cpu,
 			worker_cpu);
-		wt_mvm_split_params sparams = {
-			.split_row = -1,
-			.cpu = worker_cpu,
-			.spin_ns = WT_MVM_SPLIT_SPIN_NS_DEFAULT,
-		};
-
 		ret = wt_mvm_split_create(b->mvm, &sparams, &sp, err);
 		if (ret < 0) {
 			series_free(&s);
