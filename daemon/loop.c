@@ -201,6 +201,7 @@ static void split_create(struct wtd_loop *l)
 		return;
 	}
 	d->split_cpu = p.cpu;
+	d->split_row = wt_mvm_split_row(l->split);
 	wt_log_notice(d->log,
 		      "control.mvm_split: rows %d .. %d of u = R s on a worker "
 		      "pinned to CPU %d",
