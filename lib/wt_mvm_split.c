@@ -42,9 +42,9 @@ struct wt_mvm_split {
 	bool parked;		   /* park asked since the last apply */
 	wt_mvm_split_stats st;
 
-	_Alignas(64) atomic_uint go; /* job posted (the futex word) */
-	_Alignas(64) atomic_uint claim; /* job whose worker rows are taken */
-	_Alignas(64) atomic_uint done;	/* job the worker finished */
+	_Alignas(64) atomic_uint go;	  /* job posted (the futex word) */
+	_Alignas(64) atomic_uint claim;	  /* job whose worker rows are taken */
+	_Alignas(64) atomic_uint done;	  /* job the worker finished */
 	_Alignas(64) atomic_int sleeping; /* worker is (about to be) asleep */
 	atomic_int park;		  /* caller asks it to sleep now */
 	atomic_int stop;
@@ -64,8 +64,8 @@ static void futex_wait(atomic_uint *word, unsigned expected)
 {
 	/* Returns at once when *word != expected (EAGAIN), on a wake, on a
 	 * signal (EINTR): the caller re-checks in every case. */
-	syscall(SYS_futex, (unsigned *)word, FUTEX_WAIT_PRIVATE, expected,
-		NULL, NULL, 0);
+	syscall(SYS_futex, (unsigned *)word, FUTEX_WAIT_PRIVATE, expected, NULL,
+		NULL, 0);
 }
 
 static void futex_wake(atomic_uint *word)
@@ -236,8 +236,7 @@ int wt_mvm_split_create(const wt_mvm *m, const wt_mvm_split_params *p,
 	pthread_attr_destroy(&attr);
 	if (ret < 0) {
 		free(sp);
-		return wt_error_set(err, ret,
-				    "mvm split: worker thread%s: %s",
+		return wt_error_set(err, ret, "mvm split: worker thread%s: %s",
 				    p->priority > 0 ? " (SCHED_FIFO)" : "",
 				    wt_strerror(ret));
 	}

@@ -152,8 +152,8 @@ static void split_equals_one_cpu_and_openblas_for_odd_sizes(void **state)
 	wt_rng_seed(wt_test_seed(11));
 	for (size_t z = 0; z < sizeof(sizes) / sizeof(sizes[0]); z++) {
 		int rows = sizes[z][0], cols = sizes[z][1];
-		int split_rows[] = {-1,	      0, rows, 1, rows - 1, rows / 2,
-				    rows / 3, 5};
+		int split_rows[] = {-1,	      0,	rows,	  1,
+				    rows - 1, rows / 2, rows / 3, 5};
 		float *R = random_floats((size_t)rows * cols);
 		float *s = random_floats((size_t)cols);
 		float *one = malloc((size_t)rows * sizeof(*one));
