@@ -36,6 +36,7 @@
 #include "wt_centroid.h"
 #include "wt_clock.h"
 #include "wt_control.h"
+#include "wt_mvm_split.h"
 #include "wt_proto.h"
 #include "wtd.h"
 
@@ -48,6 +49,8 @@ struct wtd_loop {
 	wt_centroider *cen;
 	wt_control *ctl;
 	wt_calib *cal;
+	wt_mvm *mvm;	     /* control.mvm_split: our own kernel's size */
+	wt_mvm_split *split; /* NULL: u = R s on the loop thread alone */
 
 	int state, fault;
 
@@ -126,6 +129,86 @@ static void set_limits(struct wtd_loop *l, double low, double high)
 	limits_relative(l);
 }
 
+/*
+ * control.mvm_split: a worker pinned to another CPU computes the second
+ * part of u = R s (lib/wt_mvm_split.h).  Any reason it cannot start (one
+ * CPU allowed, the worker's CPU is the loop's, pinning refused) is one
+ * warning and the product stays on the loop thread.  SCHED_FIFO, when
+ * the loop has it, is asked for the worker too; refused, the worker runs
+ * without (one more warning).  The kernel is our own, as wt_control's, so
+ * u is the same to the bit either way.
+ */
+static void split_create(struct wtd_loop *l)
+{
+	struct wtd *d = l->d;
+	const wt_config *cfg = d->cfg;
+	long loop_cpu = wt_config_int(cfg, WT_OPT_DAEMON_CPU);
+	long want = wt_config_int(cfg, WT_OPT_CONTROL_MVM_SPLIT_CPU);
+	wt_mvm_split_params p = {
+		.split_row = -1,
+		.priority =
+			(int)wt_config_int(cfg, WT_OPT_DAEMON_REALTIME_PRIORITY),
+		.spin_ns = (uint64_t)wt_config_int(
+				   cfg, WT_OPT_CONTROL_MVM_SPLIT_SPIN_US) *
+			   1000u,
+	};
+	wt_error err;
+	int rc;
+
+	d->split_cpu = -1;
+	if (!wt_config_bool(cfg, WT_OPT_CONTROL_MVM_SPLIT)) {
+		return;
+	}
+	p.cpu = want >= 0 ? (int)want : wt_mvm_split_other_cpu((int)loop_cpu);
+	if (p.cpu < 0) {
+		wt_log_warning(d->log,
+			       "control.mvm_split: no CPU other than the "
+			       "loop's is allowed (%s); u = R s stays on one "
+			       "CPU",
+			       wt_strerror(p.cpu));
+		return;
+	}
+	if (p.cpu == loop_cpu) {
+		wt_log_warning(d->log,
+			       "control.mvm_split: the worker's CPU %d is "
+			       "daemon.cpu; u = R s stays on one CPU",
+			       p.cpu);
+		return;
+	}
+	rc = wt_mvm_create(d->n_act, d->n_slopes, WT_MVM_OWN, &l->mvm, &err);
+	if (rc == 0) {
+		rc = wt_mvm_split_create(l->mvm, &p, &l->split, &err);
+	}
+	if (rc == -EPERM && p.priority > 0) {
+		wt_log_warning(d->log,
+			       "control.mvm_split: SCHED_FIFO %d not granted "
+			       "to the worker; it runs without",
+			       p.priority);
+		p.priority = 0;
+		rc = wt_mvm_split_create(l->mvm, &p, &l->split, &err);
+	}
+	if (rc == 0) {
+		rc = wt_control_set_split(l->ctl, l->split);
+	}
+	if (rc < 0) {
+		wt_log_warning(d->log,
+			       "control.mvm_split: %s; u = R s stays on one "
+			       "CPU",
+			       err.msg);
+		wt_mvm_split_destroy(l->split);
+		l->split = NULL;
+		wt_mvm_destroy(l->mvm);
+		l->mvm = NULL;
+		return;
+	}
+	d->split_cpu = p.cpu;
+	d->split_row = wt_mvm_split_row(l->split);
+	wt_log_notice(d->log,
+		      "control.mvm_split: rows %d .. %d of u = R s on a worker "
+		      "pinned to CPU %d",
+		      wt_mvm_split_row(l->split), d->n_act - 1, p.cpu);
+}
+
 int wtd_loop_create(struct wtd *d, wt_error *err)
 {
 	const wt_config *cfg = d->cfg;
@@ -161,6 +244,7 @@ int wtd_loop_create(struct wtd *d, wt_error *err)
 	if (rc < 0) {
 		return rc;
 	}
+	split_create(l);
 	l->pix = zalloc(npix, sizeof(uint16_t));
 	l->slopes = zalloc(ns, sizeof(float));
 	l->residual = zalloc(ns, sizeof(float));
@@ -238,6 +322,19 @@ void wtd_loop_destroy(struct wtd *d)
 	if (!l) {
 		return;
 	}
+	if (l->split) {
+		wt_mvm_split_stats st;
+
+		wt_mvm_split_get_stats(l->split, &st);
+		wt_log_info(d->log,
+			    "control.mvm_split: %llu products, the worker's "
+			    "rows taken back by the loop in %llu",
+			    (unsigned long long)st.applies,
+			    (unsigned long long)st.taken);
+	}
+	/* the worker stops before the controller that uses it goes */
+	wt_mvm_split_destroy(l->split);
+	wt_mvm_destroy(l->mvm);
 	wt_centroid_destroy(l->cen);
 	wt_control_destroy(l->ctl);
 	wt_calib_destroy(l->cal);
@@ -296,6 +393,11 @@ static void set_state(struct wtd_loop *l, int to, int why)
 		return;
 	}
 	l->state = to;
+	if (from == WT_STATE_CLOSED && l->split) {
+		/* no products until the loop closes again: let the worker
+		 * sleep now rather than spin out its spin time */
+		wt_mvm_split_park(l->split);
+	}
 	atomic_store_explicit(&l->d->c.state, to, memory_order_release);
 	event(l, WTD_EV_STATE, from, to, why, 0);
 }
@@ -1071,7 +1173,11 @@ void *wtd_loop_main(void *arg)
 		}
 		check_silence(l, wt_clock_ns());
 	}
-	/* Stopping: the mirror goes to its flat. */
+	/* Stopping: the mirror goes to its flat; the split worker sleeps
+	 * until wtd_loop_destroy() joins it. */
+	if (l->split) {
+		wt_mvm_split_park(l->split);
+	}
 	abort_calibration(l, WTD_ABORT_REQUEST);
 	cmd_from(l, l->flat);
 	if (l->have_id) {

@@ -365,6 +365,15 @@ static int spawn_loop(struct wtd *d, pthread_t *th, long cpu, long prio)
 		CPU_ZERO(&set);
 		CPU_SET((int)cpu, &set);
 		pthread_attr_setaffinity_np(&attr, sizeof(set), &set);
+	} else if (d->split_cpu >= 0) {
+		/* not pinned, but never on the split worker's CPU: it would
+		 * then wait on a worker it keeps from running */
+		cpu_set_t set;
+
+		if (sched_getaffinity(0, sizeof(set), &set) == 0) {
+			CPU_CLR(d->split_cpu, &set);
+			pthread_attr_setaffinity_np(&attr, sizeof(set), &set);
+		}
 	}
 	if (prio > 0) {
 		struct sched_param sp = {.sched_priority = (int)prio};

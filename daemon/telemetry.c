@@ -314,6 +314,18 @@ void wtd_status_json(struct wtd *d, wt_json *j, const double *sv, int n_sv)
 	wt_json_key(j, "modes");
 	wt_json_int(j,
 		    atomic_load(&c->have_matrix) ? atomic_load(&c->modes) : 0);
+	/* set before the threads start, constant after */
+	wt_json_key(j, "mvm_split");
+	if (d->split_cpu >= 0) {
+		wt_json_object_begin(j);
+		wt_json_key(j, "cpu");
+		wt_json_int(j, d->split_cpu);
+		wt_json_key(j, "row");
+		wt_json_int(j, d->split_row);
+		wt_json_object_end(j);
+	} else {
+		wt_json_null(j);
+	}
 
 	wt_json_key(j, "calibration");
 	wt_json_object_begin(j);

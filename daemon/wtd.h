@@ -260,6 +260,9 @@ struct wtd {
 	wt_ring *image_ring;		 /* loop -> telemetry; telemetry.c */
 	atomic_int want_arrays; /* > 0: every frame record carries arrays */
 
+	int split_cpu; /* the split worker's CPU (loop.c); -1: none */
+	int split_row; /* its first row of u = R s */
+
 	struct wtd_loop *loop;
 	struct wtd_ctl *ctl;
 	struct wtd_tm *tm;

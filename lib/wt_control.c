@@ -17,6 +17,7 @@ struct wt_control {
 	int n_act;
 	int n_slopes;
 	const float *matrix; /* n_act x n_slopes, the caller's; may be NULL */
+	wt_mvm_split *split; /* the caller's; NULL: one CPU */
 	float gain;
 	float leak;
 	float max_step; /* > 0: slew limit on */
@@ -89,6 +90,19 @@ const float *wt_control_swap_matrix(wt_control *c, const float *R)
 
 	c->matrix = R;
 	return old;
+}
+
+int wt_control_set_split(wt_control *c, wt_mvm_split *sp)
+{
+	if (!c) {
+		return -EINVAL;
+	}
+	if (sp && (wt_mvm_split_rows(sp) != c->n_act ||
+		   wt_mvm_split_cols(sp) != c->n_slopes)) {
+		return -EINVAL;
+	}
+	c->split = sp;
+	return 0;
 }
 
 void wt_control_set_gain(wt_control *c, float gain)
@@ -178,7 +192,9 @@ int wt_control_step(wt_control *c, const float *s, float *cmd,
 		ret = -ERANGE;
 		goto out;
 	}
-	if (c->matrix) {
+	if (c->matrix && c->split) {
+		wt_mvm_split_apply(c->split, c->matrix, s, next);
+	} else if (c->matrix) {
 		wt_mvm_own(c->matrix, s, next, n_act, c->n_slopes);
 	} else {
 		memset(next, 0, (size_t)n_act * sizeof(*next));

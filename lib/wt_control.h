@@ -15,6 +15,7 @@
 #define WT_CONTROL_H
 
 #include "wt_error.h"
+#include "wt_mvm_split.h"
 
 /** Integrator state for n_act actuators driven from n_slopes slopes. */
 typedef struct wt_control wt_control;
@@ -35,6 +36,17 @@ void wt_control_destroy(wt_control *c);
  * previous pointer back.  NULL means no matrix: step then only leaks.
  */
 const float *wt_control_swap_matrix(wt_control *c, const float *R);
+
+/**
+ * Compute u = R s with sp (wt_mvm_split.h: the rows over two CPUs) from
+ * the next step on, or with our own kernel on the calling thread when sp
+ * is NULL (the default).  sp stays the caller's and must be for n_act x
+ * n_slopes products; the matrix is still the one swapped in here, passed
+ * to sp on every step, so a swap needs nothing from sp.  Both give the
+ * same u to the bit when sp uses our own kernel (WT_MVM_OWN).  Returns 0,
+ * or -EINVAL (nothing changed) for a split of another size.
+ */
+int wt_control_set_split(wt_control *c, wt_mvm_split *sp);
 
 /** Integrator gain g. */
 void wt_control_set_gain(wt_control *c, float gain);

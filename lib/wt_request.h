@@ -371,6 +371,9 @@
  *    "gain":NUMBER,"leak":NUMBER,
  *    "modes":N,                  modes in the installed control matrix
  *                                (0: none)
+ *    "mvm_split":null|{"cpu":N,"row":N}, control.mvm_split in force: the
+ *                                worker's CPU and its first row of u = R s
+ *                                (null: off, or it could not start)
  *    "calibration":{"matrix":BOOL,"reference":BOOL,
  *                   "source":"measured"|"file"|null,"file":TEXT|null,
  *                   "created":TEXT|null,   ISO 8601 UTC

@@ -20,6 +20,7 @@
 #include <unistd.h>
 
 #include "e2e_harness.h"
+#include "wt_mvm_split.h"
 
 #define CAL_FILE WT_BINARY_DIR "/tests/e2e-demo-calibration.h5"
 
@@ -383,6 +384,102 @@ static void sigterm_sends_flat_and_exits_zero(void **st)
 }
 
 /*
+ * Closed at gain 0.5 on the demo's static aberration for 50 frames, then
+ * the truth's mean residual over 20 frames (nm); *split_cpu: the status's
+ * mvm_split.cpu (NAN when null: off or not started).
+ */
+static double closed_truth_residual(const char *const *ov, double *split_cpu,
+				    char *log, size_t log_len)
+{
+	sim_truth t;
+	double rms;
+	char path[256];
+	size_t n;
+	FILE *f;
+	e2e e;
+
+	start_loaded(&e, ov);
+	assert_int_equal(e2e_request(&e, "status"), 1);
+	*split_cpu = e2e_reply_number(&e, "result.mvm_split.cpu");
+	assert_int_equal(e2e_request(&e, "close"), 1);
+	assert_int_equal(e2e_sync(&e, 5000), 0);
+	assert_int_equal(e2e_truth_skip(&e, 50, &t, 5000), 0);
+	rms = mean_rms(&e, 20, NULL);
+	assert_int_equal(e2e_request(&e, "status"), 1);
+	assert_true(e2e_reply_number(&e, "result.counts.rejected_updates") ==
+		    0);
+	snprintf(path, sizeof(path), "%s/daemon.log", e.dir);
+	f = fopen(path, "r");
+	assert_non_null(f);
+	n = fread(log, 1, log_len - 1, f);
+	log[n] = '\0';
+	fclose(f);
+	e2e_stop_clean(&e);
+	return rms;
+}
+
+/*
+ * control.mvm_split on: the worker is running (status), the loop closes,
+ * and the simulator's truth residual is the one-CPU daemon's within the
+ * run-to-run noise of the calibration's photon noise and the sensor's
+ * (10 % + 3 nm; the products are the same to the bit, tests/test_mvm_split.c,
+ * so any difference is noise), and below lambda/14 (Marechal's criterion,
+ * Born & Wolf section 9.3; 65.7 nm at 920 nm).
+ */
+static void split_product_gives_the_same_truth_residual(void **st)
+{
+	static const char *const off[] = {"control.gain=0.5", "control.leak=0",
+					  NULL};
+	static const char *const on[] = {"control.gain=0.5", "control.leak=0",
+					 "control.mvm_split=on", NULL};
+	char log[16384];
+	double cpu_off, cpu_on, rms_off, rms_on;
+
+	(void)st;
+	rms_off = closed_truth_residual(off, &cpu_off, log, sizeof(log));
+	assert_true(isnan(cpu_off));
+	rms_on = closed_truth_residual(on, &cpu_on, log, sizeof(log));
+	print_message("closed-loop truth residual: one CPU %.2f nm, split "
+		      "(worker on CPU %g) %.2f nm\n",
+		      rms_off, cpu_on, rms_on);
+	if (wt_mvm_split_other_cpu(-1) >= 0) {
+		assert_true(cpu_on >= 0);
+		assert_non_null(strstr(log, "control.mvm_split: rows"));
+	} else {
+		/* one CPU here: the fallback, said once */
+		assert_true(isnan(cpu_on));
+		assert_non_null(strstr(log, "u = R s stays on one CPU"));
+	}
+	assert_true(rms_off < 920.0 / 14);
+	assert_true(rms_on < 920.0 / 14);
+	assert_true(fabs(rms_on - rms_off) <= 0.1 * rms_off + 3.0);
+}
+
+/*
+ * A worker CPU this process may not use: pinning fails, the daemon says
+ * so once in its log, runs the product on one CPU (status mvm_split
+ * null) and still closes the loop below Marechal's criterion.
+ */
+static void split_worker_that_cannot_be_pinned_warns_one_cpu(void **st)
+{
+	static const char *const ov[] = {"control.gain=0.5", "control.leak=0",
+					 "control.mvm_split=on",
+					 "control.mvm_split_cpu=1023", NULL};
+	char log[16384];
+	const char *w;
+	double cpu, rms;
+
+	(void)st;
+	rms = closed_truth_residual(ov, &cpu, log, sizeof(log));
+	assert_true(isnan(cpu));
+	w = strstr(log, "u = R s stays on one CPU");
+	assert_non_null(w);
+	assert_non_null(strstr(log, "cannot pin the worker to CPU 1023"));
+	assert_null(strstr(w + 1, "u = R s stays on one CPU")); /* once */
+	assert_true(rms < 920.0 / 14);
+}
+
+/*
  * Zero allocation after warm-up: wavetrimd runs with tests/alloc_probe.c
  * preloaded, which counts every malloc/calloc/realloc/free (and the aligned
  * variants) made in the loop thread - by the loop itself and by the
@@ -393,11 +490,8 @@ static void sigterm_sends_flat_and_exits_zero(void **st)
  * are counted apart and printed.  Geometric spots keep the simulator
  * quick; a long driver timeout keeps a loaded machine from faulting it.
  */
-static void
-loop_thread_makes_no_heap_call_in_ten_thousand_closed_frames(void **st)
+static void alloc_probe_run(const char *const *ov, bool split)
 {
-	static const char *const ov[] = {"camera.spot_model=geometric",
-					 "driver.timeout_ms=60000", NULL};
 	const unsigned long warmup = 500, frames = 10000;
 	char report[256], line[128] = "";
 	unsigned long got_frames = 0, calls = 1, zmq_calls = 0;
@@ -405,7 +499,6 @@ loop_thread_makes_no_heap_call_in_ten_thousand_closed_frames(void **st)
 	FILE *f;
 	e2e e;
 
-	(void)st;
 	assert_int_equal(e2e_setup(&e, ov), 0);
 	snprintf(report, sizeof(report), "%s",
 		 WT_BINARY_DIR "/tests/alloc-report.txt");
@@ -421,6 +514,15 @@ loop_thread_makes_no_heap_call_in_ten_thousand_closed_frames(void **st)
 	assert_int_equal(e2e_request(&e, "close"), 1);
 	assert_int_equal(e2e_wait_state(&e, "closed", 5000), 0);
 	assert_int_equal(e2e_request(&e, "status"), 1);
+	if (split) {
+		/* the split must really be in force for this to mean
+		 * anything: skip where this process has one CPU */
+		if (wt_mvm_split_other_cpu(-1) < 0) {
+			e2e_stop_clean(&e);
+			skip();
+		}
+		assert_true(e2e_reply_number(&e, "result.mvm_split.cpu") >= 0);
+	}
 	f0 = e2e_reply_number(&e, "result.frames");
 	for (int k = 0; k < 5000; k++) {
 		assert_int_equal(e2e_request(&e, "status"), 1);
@@ -453,6 +555,30 @@ loop_thread_makes_no_heap_call_in_ten_thousand_closed_frames(void **st)
 		      got_frames, calls, zmq_calls);
 	assert_int_equal(got_frames, frames);
 	assert_int_equal(calls, 0);
+}
+
+static void
+loop_thread_makes_no_heap_call_in_ten_thousand_closed_frames(void **st)
+{
+	static const char *const ov[] = {"camera.spot_model=geometric",
+					 "driver.timeout_ms=60000", NULL};
+
+	(void)st;
+	alloc_probe_run(ov, false);
+}
+
+/* The same with u = R s split over two CPUs (control.mvm_split): the
+ * loop thread's hand-off to the worker allocates nothing either.  The
+ * worker thread is not the loop thread; that it allocates nothing after
+ * creation is tests/test_mvm_split.c's applies_allocate_nothing. */
+static void loop_thread_makes_no_heap_call_with_split_product(void **st)
+{
+	static const char *const ov[] = {"camera.spot_model=geometric",
+					 "driver.timeout_ms=60000",
+					 "control.mvm_split=on", NULL};
+
+	(void)st;
+	alloc_probe_run(ov, true);
 }
 
 /* Open loop, then closed: the truth RMS before and after (nm). */
@@ -639,6 +765,9 @@ static const struct CMUnitTest tests[] = {
 		loop_thread_makes_no_heap_call_in_ten_thousand_closed_frames),
 	cmocka_unit_test(realtime_settings_are_applied_and_loop_corrects),
 	cmocka_unit_test(cpu_not_granted_warns_once_and_loop_runs),
+	cmocka_unit_test(loop_thread_makes_no_heap_call_with_split_product),
+	cmocka_unit_test(split_product_gives_the_same_truth_residual),
+	cmocka_unit_test(split_worker_that_cannot_be_pinned_warns_one_cpu),
 };
 
 WT_TEST_MAIN(tests)

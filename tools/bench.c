@@ -25,9 +25,9 @@
  * computation runs at the memory's speed.
  *
  * The optional split runs the matrix-vector product of a system over two
- * CPUs: this thread computes the first half of the rows, a worker pinned
- * to another CPU the second, handed off through a spin-waited sequence
- * number (no sleep, no wake-up).
+ * CPUs with lib/wt_mvm_split (the daemon's control.mvm_split): this thread
+ * computes the first rows, a worker pinned to another CPU the rest,
+ * handed off through spin-waited sequence numbers.
  *
  * --svd times, for the systems listed (L by default), the daemon's build
  * of the control matrix from a modelled interaction matrix next to a bare
@@ -39,7 +39,6 @@
 #include <math.h>
 #include <pthread.h>
 #include <sched.h>
-#include <stdatomic.h>
 #include <stdbool.h>
 #include <stdint.h>
 #include <stdio.h>
@@ -58,6 +57,7 @@
 #include "wt_geometry.h"
 #include "wt_json.h"
 #include "wt_mvm.h"
+#include "wt_mvm_split.h"
 
 #define BENCH_JSON_MAX (256 * 1024)
 
@@ -169,6 +169,7 @@ struct bench_system {
 	struct result_stage split;
 	double split_max_diff;
 	int split_row;
+	long split_taken, split_applies; /* worker's rows done here / all */
 
 	bool svd_done;
 	struct bench_svd svd;
@@ -190,13 +191,6 @@ static uint64_t rng_next(uint64_t *state)
 static double rng_uniform(uint64_t *state)
 {
 	return (double)(rng_next(state) >> 11) * (1.0 / 9007199254740992.0);
-}
-
-static inline void cpu_relax(void)
-{
-#if defined(__x86_64__) || defined(__i386__)
-	__builtin_ia32_pause();
-#endif
 }
 
 static int cmp_u64(const void *a, const void *b)
@@ -318,94 +312,6 @@ static void series_stats(struct series *s, struct result_stage *r)
 	stats_of(s->mvm, s->n, &r->mvm);
 	stats_of(s->control, s->n, &r->control);
 	stats_of(s->total, s->n, &r->total);
-}
-
-/* ---- the split worker --------------------------------------------------- */
-
-/* The second CPU's share of u = R s.  go and done live on their own cache
- * lines so that the two spinning threads only share what they must. */
-struct split {
-	pthread_t thread;
-	const wt_mvm *mvm;
-	const float *R, *s;
-	float *u;
-	int row0, n_rows; /* the worker's rows */
-	int cpu;
-	int pin_ret;
-	_Alignas(64) atomic_ulong go;	/* frame posted; ULONG_MAX: stop */
-	_Alignas(64) atomic_ulong done; /* frame finished */
-	_Alignas(64) atomic_int ready;
-};
-
-static void *split_worker(void *arg)
-{
-	struct split *sp = arg;
-	unsigned long seen = 0;
-
-	sp->pin_ret = pin_thread(pthread_self(), sp->cpu);
-	atomic_store_explicit(&sp->ready, 1, memory_order_release);
-	for (;;) {
-		unsigned long g;
-
-		while ((g = atomic_load_explicit(
-				&sp->go, memory_order_acquire)) == seen) {
-			cpu_relax();
-		}
-		if (g == ULONG_MAX) {
-			break;
-		}
-		wt_mvm_apply_rows(sp->mvm, sp->R, sp->s, sp->u, sp->row0,
-				  sp->n_rows);
-		atomic_store_explicit(&sp->done, g, memory_order_release);
-		seen = g;
-	}
-	return NULL;
-}
-
-static void split_stop(struct split *sp)
-{
-	atomic_store_explicit(&sp->go, ULONG_MAX, memory_order_release);
-	pthread_join(sp->thread, NULL);
-}
-
-static int split_start(struct split *sp, struct bench_system *b, int cpu)
-{
-	int ret;
-
-	memset(sp, 0, sizeof(*sp));
-	sp->mvm = b->mvm;
-	sp->R = b->R;
-	sp->s = b->slopes;
-	sp->u = b->u;
-	/* half the rows, on a multiple of four (the kernel's block) */
-	sp->row0 = (b->n_act / 2) & ~3;
-	sp->n_rows = b->n_act - sp->row0;
-	sp->cpu = cpu;
-	atomic_init(&sp->go, 0);
-	atomic_init(&sp->done, 0);
-	atomic_init(&sp->ready, 0);
-	ret = -pthread_create(&sp->thread, NULL, split_worker, sp);
-	if (ret < 0) {
-		return ret;
-	}
-	while (!atomic_load_explicit(&sp->ready, memory_order_acquire)) {
-		cpu_relax();
-	}
-	if (sp->pin_ret < 0) {
-		split_stop(sp);
-		return sp->pin_ret;
-	}
-	return 0;
-}
-
-/* u = R s over two CPUs; frame numbers start at 1. */
-static void split_apply(struct split *sp, unsigned long frame)
-{
-	atomic_store_explicit(&sp->go, frame, memory_order_release);
-	wt_mvm_apply_rows(sp->mvm, sp->R, sp->s, sp->u, 0, sp->row0);
-	while (atomic_load_explicit(&sp->done, memory_order_acquire) != frame) {
-		cpu_relax();
-	}
 }
 
 /* ---- set-up ------------------------------------------------------------- */
@@ -576,7 +482,7 @@ static int system_setup(struct bench_system *b, const struct system_def *def,
 
 /* warm-up frames, then s->n timed frames; sp NULL: single CPU. */
 static void run_frames(struct bench_system *b, struct series *s, long warmup,
-		       struct split *sp)
+		       wt_mvm_split *sp)
 {
 	long f, total = warmup + s->n;
 
@@ -589,7 +495,7 @@ static void run_frames(struct bench_system *b, struct series *s, long warmup,
 				  b->valid);
 		t1 = wt_clock_ns();
 		if (sp) {
-			split_apply(sp, (unsigned long)f + 1);
+			wt_mvm_split_apply(sp, b->R, b->slopes, b->u);
 		} else {
 			wt_mvm_apply(b->mvm, b->R, b->slopes, b->u);
 		}
@@ -683,25 +589,32 @@ static int system_measure(struct bench_system *b, const struct options *opt,
 	free(t);
 
 	if ((opt->split & (1u << (b->def - systems))) && worker_cpu >= 0) {
-		struct split sp;
+		wt_mvm_split_params sparams = {
+			.split_row = -1,
+			.cpu = worker_cpu,
+			.spin_ns = WT_MVM_SPLIT_SPIN_NS_DEFAULT,
+		};
+		wt_mvm_split *sp;
+		wt_mvm_split_stats sst;
 
 		fprintf(stderr,
 			"%s: %ld frames, product split over CPUs "
 			"%d and %d ...\n",
 			b->def->name, opt->warmup + opt->frames, opt->cpu,
 			worker_cpu);
-		ret = split_start(&sp, b, worker_cpu);
+		ret = wt_mvm_split_create(b->mvm, &sparams, &sp, err);
 		if (ret < 0) {
 			series_free(&s);
-			return wt_error_set(err, ret,
-					    "split worker on CPU %d: %s",
-					    worker_cpu, wt_strerror(ret));
+			return ret;
 		}
-		run_frames(b, &s, opt->warmup, &sp);
-		split_stop(&sp);
+		run_frames(b, &s, opt->warmup, sp);
+		wt_mvm_split_get_stats(sp, &sst);
+		b->split_row = wt_mvm_split_row(sp);
+		wt_mvm_split_destroy(sp);
 		series_stats(&s, &b->split);
 		b->split_done = true;
-		b->split_row = sp.row0;
+		b->split_taken = (long)sst.taken;
+		b->split_applies = (long)sst.applies;
 		b->split_max_diff = 0.0;
 		for (i = 0; i < b->n_act; i++) {
 			double d = fabs((double)b->u[i] - b->u_single[i]);
@@ -869,8 +782,10 @@ static void print_table(struct bench_system *bs, int n,
 				 opt->cpu, worker_cpu);
 			print_stage(label, &b->split, b->floor_ns);
 			printf("  split at row %d; largest difference from "
-			       "the one-CPU u: %g\n",
-			       b->split_row, b->split_max_diff);
+			       "the one-CPU u: %g; worker's rows taken back "
+			       "by this thread in %ld of %ld products\n",
+			       b->split_row, b->split_max_diff, b->split_taken,
+			       b->split_applies);
 		}
 		printf("\n");
 	}
@@ -1104,6 +1019,8 @@ static int print_json(struct bench_system *bs, int n, const struct options *opt,
 			wt_json_int(&j, worker_cpu);
 			wt_json_key(&j, "split_row");
 			wt_json_int(&j, b->split_row);
+			wt_json_key(&j, "split_taken_back");
+			wt_json_int(&j, b->split_taken);
 			wt_json_key(&j, "max_diff_from_one_cpu");
 			wt_json_double(&j, b->split_max_diff);
 			json_stage(&j, "timing", &b->split, b->floor_ns);
@@ -1408,12 +1325,9 @@ int main(int argc, char **argv)
 		opt.cpu = cpus[0];
 	}
 	if (opt.split) {
-		worker_cpu = opt.worker_cpu;
-		for (i = 0; worker_cpu < 0 && i < n_cpus; i++) {
-			if (cpus[i] != opt.cpu) {
-				worker_cpu = cpus[i];
-			}
-		}
+		worker_cpu = opt.worker_cpu >= 0
+				     ? opt.worker_cpu
+				     : wt_mvm_split_other_cpu(opt.cpu);
 		if (worker_cpu < 0 || worker_cpu == opt.cpu) {
 			fprintf(stderr, "no second CPU: the split is not "
 					"run\n");
