@@ -44,6 +44,7 @@
 #include <cblas.h>
 
 #include "bench_stream.h"
+#include "bench_util.h"
 #include "wt_centroid.h"
 #include "wt_clock.h"
 #include "wt_control.h"
@@ -53,13 +54,6 @@
 #include "wt_mvm.h"
 
 #define BENCH_JSON_MAX (256 * 1024)
-
-/* The synthetic frame: background level, spot peak above it, and the spot
- * width and offset range as fractions of the window side. */
-#define FRAME_BACKGROUND       100.0
-#define FRAME_PEAK	       3000.0
-#define SPOT_SIGMA_PER_PIXELS  (1.0 / 8.0)
-#define SPOT_OFFSET_PER_PIXELS 0.125
 
 /* Controller settings: typical values, they do not change the work done. */
 #define CONTROL_GAIN 0.3f
@@ -111,10 +105,6 @@ struct options {
 	bool sweep;
 };
 
-struct stats {
-	double p50, p99, p999, max, min, mean; /* ns */
-};
-
 /* The timings of one run of frames: per frame, in ns. */
 struct series {
 	uint64_t *centroid, *mvm, *control, *total;
@@ -157,80 +147,11 @@ struct bench_system {
 
 /* ---- small helpers ------------------------------------------------------ */
 
-/* splitmix64 (Steele, Lea and Flood, 2014): seeded, repeatable. */
-static uint64_t rng_next(uint64_t *state)
-{
-	uint64_t z = (*state += 0x9e3779b97f4a7c15ull);
-
-	z = (z ^ (z >> 30)) * 0xbf58476d1ce4e5b9ull;
-	z = (z ^ (z >> 27)) * 0x94d049bb133111ebull;
-	return z ^ (z >> 31);
-}
-
-/* Uniform in [0, 1). */
-static double rng_uniform(uint64_t *state)
-{
-	return (double)(rng_next(state) >> 11) * (1.0 / 9007199254740992.0);
-}
-
 static inline void cpu_relax(void)
 {
 #if defined(__x86_64__) || defined(__i386__)
 	__builtin_ia32_pause();
 #endif
-}
-
-static int cmp_u64(const void *a, const void *b)
-{
-	uint64_t x = *(const uint64_t *)a, y = *(const uint64_t *)b;
-
-	return (x > y) - (x < y);
-}
-
-/* Nearest-rank percentile of sorted v: the smallest value with at least
- * p of the samples at or below it (common practice). */
-static double percentile(const uint64_t *v, long n, double p)
-{
-	long k = (long)ceil(p * (double)n) - 1;
-
-	if (k < 0) {
-		k = 0;
-	}
-	if (k >= n) {
-		k = n - 1;
-	}
-	return (double)v[k];
-}
-
-/* Sorts v. */
-static void stats_of(uint64_t *v, long n, struct stats *st)
-{
-	double sum = 0.0;
-	long i;
-
-	memset(st, 0, sizeof(*st));
-	if (n <= 0) {
-		return;
-	}
-	qsort(v, (size_t)n, sizeof(*v), cmp_u64);
-	for (i = 0; i < n; i++) {
-		sum += (double)v[i];
-	}
-	st->p50 = percentile(v, n, 0.50);
-	st->p99 = percentile(v, n, 0.99);
-	st->p999 = percentile(v, n, 0.999);
-	st->max = (double)v[n - 1];
-	st->min = (double)v[0];
-	st->mean = sum / (double)n;
-}
-
-static int pin_thread(pthread_t thread, int cpu)
-{
-	cpu_set_t set;
-
-	CPU_ZERO(&set);
-	CPU_SET(cpu, &set);
-	return -pthread_setaffinity_np(thread, sizeof(set), &set);
 }
 
 /* The CPUs this process may run on, highest first in cpus[]. */
@@ -255,7 +176,7 @@ static double clock_overhead_ns(void)
 {
 	enum { N = 20001 };
 	uint64_t *d = malloc(N * sizeof(*d));
-	double med;
+	struct stats st;
 	int i;
 
 	if (!d) {
@@ -266,10 +187,9 @@ static double clock_overhead_ns(void)
 
 		d[i] = wt_clock_ns() - t0;
 	}
-	qsort(d, N, sizeof(*d), cmp_u64);
-	med = (double)d[N / 2];
+	stats_of(d, N, &st); /* its p50 is the median of an odd count */
 	free(d);
-	return med;
+	return st.p50;
 }
 
 static int series_alloc(struct series *s, long n)
@@ -395,36 +315,8 @@ static void split_apply(struct split *sp, unsigned long frame)
  * of the window of its centre; the true offsets are kept. */
 static void render_frame(struct bench_system *b, uint64_t *rng)
 {
-	int p = b->def->pixels, side = b->side, k, i, j;
-	double sigma = p * SPOT_SIGMA_PER_PIXELS;
-	double centre = 0.5 * (p - 1);
-
-	for (i = 0; i < side * side; i++) {
-		b->frame[i] = (uint16_t)FRAME_BACKGROUND;
-	}
-	for (k = 0; k < b->n_sub; k++) {
-		double dx = (2.0 * rng_uniform(rng) - 1.0) * p *
-			    SPOT_OFFSET_PER_PIXELS;
-		double dy = (2.0 * rng_uniform(rng) - 1.0) * p *
-			    SPOT_OFFSET_PER_PIXELS;
-		int x0 = b->lenslets->col[k] * p, y0 = b->lenslets->row[k] * p;
-
-		b->true_dx[k] = (float)dx;
-		b->true_dy[k] = (float)dy;
-		for (j = 0; j < p; j++) {
-			for (i = 0; i < p; i++) {
-				double ex = i - centre - dx,
-				       ey = j - centre - dy;
-				double v =
-					FRAME_BACKGROUND +
-					FRAME_PEAK * exp(-(ex * ex + ey * ey) /
-							 (2.0 * sigma * sigma));
-
-				b->frame[(size_t)(y0 + j) * side + x0 + i] =
-					(uint16_t)lround(v);
-			}
-		}
-	}
+	bench_render_spots(b->frame, b->side, b->lenslets, b->def->pixels, rng,
+			   b->true_dx, b->true_dy);
 }
 
 static void system_free(struct bench_system *b)
