@@ -40,9 +40,11 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <unistd.h>
 
 #include <cblas.h>
 
+#include "bench_e2e.h"
 #include "bench_stream.h"
 #include "bench_util.h"
 #include "wt_centroid.h"
@@ -103,6 +105,9 @@ struct options {
 	unsigned long seed;
 	bool json;
 	bool sweep;
+	unsigned e2e; /* bit i: systems[i] end to end (bench_e2e.c) */
+	struct bench_e2e_options e2e_opt;
+	char daemon_path[4096];
 };
 
 /* The timings of one run of frames: per frame, in ns. */
@@ -727,25 +732,6 @@ static void print_table(struct bench_system *bs, int n,
 	}
 }
 
-static void json_stats(wt_json *j, const char *key, const struct stats *st)
-{
-	wt_json_key(j, key);
-	wt_json_object_begin(j);
-	wt_json_key(j, "p50_ns");
-	wt_json_double_prec(j, st->p50, 8);
-	wt_json_key(j, "p99_ns");
-	wt_json_double_prec(j, st->p99, 8);
-	wt_json_key(j, "p99_9_ns");
-	wt_json_double_prec(j, st->p999, 8);
-	wt_json_key(j, "max_ns");
-	wt_json_double_prec(j, st->max, 8);
-	wt_json_key(j, "min_ns");
-	wt_json_double_prec(j, st->min, 8);
-	wt_json_key(j, "mean_ns");
-	wt_json_double_prec(j, st->mean, 8);
-	wt_json_object_end(j);
-}
-
 static void json_stage(wt_json *j, const char *key,
 		       const struct result_stage *r, double floor_ns)
 {
@@ -798,7 +784,9 @@ static void json_loadavg(wt_json *j, const char *key, const double *l)
 
 static int print_json(struct bench_system *bs, int n, const struct options *opt,
 		      const double load[2][3], int worker_cpu, double clock_ns,
-		      const struct bench_stream *sweep, int n_sweep)
+		      const struct bench_stream *sweep, int n_sweep,
+		      const struct bench_e2e_result *e2e, int n_e2e,
+		      const double *e2e_compute)
 {
 	char *buf = malloc(BENCH_JSON_MAX);
 	wt_json j;
@@ -939,6 +927,9 @@ static int print_json(struct bench_system *bs, int n, const struct options *opt,
 		}
 		wt_json_array_end(&j);
 	}
+	if (n_e2e > 0) {
+		bench_e2e_json(&j, e2e, n_e2e, e2e_compute, &opt->e2e_opt);
+	}
 	wt_json_object_end(&j);
 	len = wt_json_finish(&j);
 	if (len < 0) {
@@ -984,6 +975,28 @@ static void usage(FILE *out)
 		"16 KiB to 256 MiB\n"
 		"      --json           one JSON object instead of the "
 		"tables\n"
+		"\n"
+		"end to end (the real wavetrimd, driven by the replay "
+		"driver over ipc):\n"
+		"      --e2e LIST       systems run end to end (default "
+		"S,M,L; none for none)\n"
+		"      --e2e-frames N   lockstep frames timed, e2e and "
+		"ZeroMQ floor (default 10000)\n"
+		"      --e2e-warmup N   lockstep frames first, not timed "
+		"(default 500)\n"
+		"      --rates LIST     free-running rates in Hz, rising "
+		"(default\n"
+		"                       2000,5000,10000,15000,20000,30000,"
+		"50000)\n"
+		"      --rate-frames N  frames at each rate (default "
+		"100000)\n"
+		"      --load           a busy thread on the replay's CPU "
+		"meanwhile\n"
+		"      --daemon PATH    wavetrimd (default: "
+		"../daemon/wavetrimd from this program)\n"
+		"      --replay-cpu N   CPU of the replay (default: another "
+		"than --cpu, which\n"
+		"                       the daemon's loop thread gets)\n"
 		"  -h, --help           this text\n");
 }
 
@@ -1035,7 +1048,193 @@ static int parse_systems(const char *s, unsigned *out)
 	return 0;
 }
 
-enum { OPT_SPLIT = 256, OPT_WORKER_CPU, OPT_SEED, OPT_SWEEP, OPT_JSON };
+enum { OPT_SPLIT = 256, OPT_WORKER_CPU, OPT_SEED, OPT_SWEEP, OPT_JSON,
+       OPT_E2E, OPT_E2E_FRAMES, OPT_E2E_WARMUP, OPT_RATES, OPT_RATE_FRAMES,
+       OPT_LOAD, OPT_DAEMON, OPT_REPLAY_CPU };
+
+/* ---- end to end: options and the run (bench_e2e.c) ---------------------- */
+
+static void e2e_defaults(struct options *opt)
+{
+	static const double rates[] = {2000,  5000,  10000, 15000,
+				       20000, 30000, 50000};
+	struct bench_e2e_options *e = &opt->e2e_opt;
+	size_t i;
+
+	opt->e2e = (1u << N_SYSTEMS) - 1;
+	memset(e, 0, sizeof(*e));
+	e->frames = 10000;
+	e->warmup = 500;
+	e->rate_frames = 100000;
+	for (i = 0; i < sizeof(rates) / sizeof(rates[0]); i++) {
+		e->rates_hz[e->n_rates++] = rates[i];
+	}
+	e->daemon_cpu = -1;
+	e->replay_cpu = -1;
+	e->timeout_ms = 1000;
+	opt->daemon_path[0] = '\0';
+}
+
+/* "2000,5000,..." in Hz, rising. */
+static int parse_rates(const char *s, struct bench_e2e_options *e)
+{
+	const char *p = s;
+	int n = 0;
+
+	while (*p) {
+		char *end;
+		double v;
+
+		errno = 0;
+		v = strtod(p, &end);
+		if (errno || end == p || !(v > 0.0 && v <= 1e6) ||
+		    n == E2E_RATES_MAX || (n > 0 && v <= e->rates_hz[n - 1]) ||
+		    (*end != ',' && *end != '\0')) {
+			return -EINVAL;
+		}
+		e->rates_hz[n++] = v;
+		p = *end ? end + 1 : end;
+	}
+	if (n == 0) {
+		return -EINVAL;
+	}
+	e->n_rates = n;
+	return 0;
+}
+
+static int parse_e2e_option(int c, const char *arg, struct options *opt)
+{
+	struct bench_e2e_options *e = &opt->e2e_opt;
+	long v;
+
+	switch (c) {
+	case OPT_E2E:
+		if (parse_systems(arg, &opt->e2e)) {
+			fprintf(stderr, "--e2e: a list of S, M, L, or none\n");
+			return -EINVAL;
+		}
+		return 0;
+	case OPT_E2E_FRAMES:
+	case OPT_E2E_WARMUP:
+	case OPT_RATE_FRAMES:
+		if (parse_long(arg, c == OPT_E2E_WARMUP ? 0 : 1, 10000000,
+			       &v)) {
+			fprintf(stderr, "--e2e-frames, --e2e-warmup, "
+					"--rate-frames: 0 .. 1e7\n");
+			return -EINVAL;
+		}
+		*(c == OPT_E2E_FRAMES	? &e->frames
+		  : c == OPT_E2E_WARMUP ? &e->warmup
+					: &e->rate_frames) = v;
+		return 0;
+	case OPT_RATES:
+		if (parse_rates(arg, e)) {
+			fprintf(stderr, "--rates: up to %d rising rates in "
+					"Hz, (0, 1e6], separated by commas\n",
+				E2E_RATES_MAX);
+			return -EINVAL;
+		}
+		return 0;
+	case OPT_LOAD:
+		e->load = true;
+		return 0;
+	case OPT_DAEMON:
+		if (strlen(arg) >= sizeof(opt->daemon_path)) {
+			fprintf(stderr, "--daemon: path too long\n");
+			return -EINVAL;
+		}
+		strcpy(opt->daemon_path, arg);
+		return 0;
+	case OPT_REPLAY_CPU:
+		if (parse_long(arg, 0, CPU_SETSIZE - 1, &v)) {
+			fprintf(stderr, "--replay-cpu: a CPU number\n");
+			return -EINVAL;
+		}
+		e->replay_cpu = (int)v;
+		return 0;
+	}
+	return -EINVAL;
+}
+
+/* wavetrimd beside this program's build folder: ../daemon/wavetrimd. */
+static int find_daemon(struct options *opt)
+{
+	char exe[4096], *slash;
+	ssize_t n;
+
+	if (opt->daemon_path[0]) {
+		return access(opt->daemon_path, X_OK) == 0 ? 0 : -errno;
+	}
+	n = readlink("/proc/self/exe", exe, sizeof(exe) - 1);
+	if (n <= 0) {
+		return -ENOENT;
+	}
+	exe[n] = '\0';
+	slash = strrchr(exe, '/');
+	if (!slash) {
+		return -ENOENT;
+	}
+	*slash = '\0';
+	if ((size_t)snprintf(opt->daemon_path, sizeof(opt->daemon_path),
+			     "%s/../daemon/wavetrimd",
+			     exe) >= sizeof(opt->daemon_path)) {
+		return -ENAMETOOLONG;
+	}
+	return access(opt->daemon_path, X_OK) == 0 ? 0 : -errno;
+}
+
+/* Every system of opt->e2e end to end; the compute part's total p50 of
+ * the same system (NaN if it was not measured) into compute_p50[]. */
+static int run_e2e(struct bench_system *bs, int n, struct options *opt,
+		   const int *cpus, int n_cpus, struct bench_e2e_result *res,
+		   double *compute_p50)
+{
+	struct bench_e2e_options *e = &opt->e2e_opt;
+	int i, k, m = 0, ret;
+
+	ret = find_daemon(opt);
+	if (ret < 0) {
+		fprintf(stderr,
+			"wavetrimd not found at %s (%s): build it, give "
+			"--daemon PATH, or --e2e none\n",
+			opt->daemon_path, strerror(-ret));
+		return ret;
+	}
+	e->daemon_path = opt->daemon_path;
+	e->daemon_cpu = opt->cpu;
+	e->seed = opt->seed;
+	for (i = 0; e->replay_cpu < 0 && i < n_cpus; i++) {
+		if (cpus[i] != opt->cpu) {
+			e->replay_cpu = cpus[i];
+		}
+	}
+	if (e->replay_cpu < 0) {
+		e->replay_cpu = opt->cpu; /* one CPU: both on it */
+	}
+	for (i = 0; i < N_SYSTEMS; i++) {
+		const struct system_def *d = &systems[i];
+		struct bench_geometry g = {d->name,	  d->lenslets,
+					   d->pixels,	  d->actuators,
+					   d->layout,	  d->pupil_pitches,
+					   d->margin_pitches};
+
+		if (!(opt->e2e & (1u << i))) {
+			continue;
+		}
+		compute_p50[m] = NAN;
+		for (k = 0; k < n; k++) {
+			if (bs[k].def == d) {
+				compute_p50[m] = bs[k].single.total.p50;
+			}
+		}
+		if (bench_e2e_run(&g, e, &res[m]) < 0) {
+			fprintf(stderr, "%s end to end: %s\n", d->name,
+				res[m].error);
+		}
+		m++;
+	}
+	return m;
+}
 
 static int parse_args(int argc, char **argv, struct options *opt)
 {
@@ -1050,6 +1249,14 @@ static int parse_args(int argc, char **argv, struct options *opt)
 		{"seed", required_argument, NULL, OPT_SEED},
 		{"sweep", no_argument, NULL, OPT_SWEEP},
 		{"json", no_argument, NULL, OPT_JSON},
+		{"e2e", required_argument, NULL, OPT_E2E},
+		{"e2e-frames", required_argument, NULL, OPT_E2E_FRAMES},
+		{"e2e-warmup", required_argument, NULL, OPT_E2E_WARMUP},
+		{"rates", required_argument, NULL, OPT_RATES},
+		{"rate-frames", required_argument, NULL, OPT_RATE_FRAMES},
+		{"load", no_argument, NULL, OPT_LOAD},
+		{"daemon", required_argument, NULL, OPT_DAEMON},
+		{"replay-cpu", required_argument, NULL, OPT_REPLAY_CPU},
 		{"help", no_argument, NULL, 'h'},
 		{NULL, 0, NULL, 0},
 	};
@@ -1066,6 +1273,7 @@ static int parse_args(int argc, char **argv, struct options *opt)
 	opt->seed = 1;
 	opt->json = false;
 	opt->sweep = false;
+	e2e_defaults(opt);
 	while ((c = getopt_long(argc, argv, "n:w:s:m:c:h", longopts, NULL)) !=
 	       -1) {
 		switch (c) {
@@ -1126,6 +1334,12 @@ static int parse_args(int argc, char **argv, struct options *opt)
 			usage(stdout);
 			exit(0);
 		default:
+			if (c >= OPT_E2E && c <= OPT_REPLAY_CPU) {
+				if (parse_e2e_option(c, optarg, opt) < 0) {
+					return -EINVAL;
+				}
+				break;
+			}
 			usage(stderr);
 			return -EINVAL;
 		}
@@ -1150,6 +1364,9 @@ int main(int argc, char **argv)
 {
 	struct bench_system bs[N_SYSTEMS];
 	struct bench_stream sweep[SWEEP_MAX];
+	struct bench_e2e_result e2e[N_SYSTEMS];
+	double e2e_compute[N_SYSTEMS];
+	int n_e2e = 0;
 	struct options opt;
 	double load[2][3], clock_ns;
 	int cpus[CPU_SETSIZE < 1024 ? CPU_SETSIZE : 1024];
@@ -1211,6 +1428,13 @@ int main(int argc, char **argv)
 		wt_control_swap_matrix(bs[n].whole, NULL);
 		n++;
 	}
+	if (opt.e2e) {
+		n_e2e = run_e2e(bs, n, &opt, cpus, n_cpus, e2e, e2e_compute);
+		if (n_e2e < 0) {
+			n_e2e = 0;
+			goto out;
+		}
+	}
 	if (opt.sweep) {
 		size_t ws;
 
@@ -1232,13 +1456,17 @@ int main(int argc, char **argv)
 
 	if (opt.json) {
 		if (print_json(bs, n, &opt, (const double(*)[3])load,
-			       worker_cpu, clock_ns, sweep, n_sweep) < 0) {
+			       worker_cpu, clock_ns, sweep, n_sweep, e2e, n_e2e,
+			       e2e_compute) < 0) {
 			fprintf(stderr, "JSON output too large\n");
 			goto out;
 		}
 	} else {
 		print_table(bs, n, &opt, (const double(*)[3])load, worker_cpu,
 			    clock_ns);
+		if (n_e2e > 0) {
+			bench_e2e_print(e2e, n_e2e, e2e_compute, &opt.e2e_opt);
+		}
 		if (n_sweep > 0) {
 			printf("\nSTREAM (%s) by working set:\n%12s %10s "
 			       "%10s\n",
@@ -1252,6 +1480,9 @@ int main(int argc, char **argv)
 		}
 	}
 	status = 0;
+	for (i = 0; i < n_e2e; i++) {
+		status |= !e2e[i].done; /* said on stderr and in the output */
+	}
 out:
 	for (i = 0; i < n; i++) {
 		system_free(&bs[i]);

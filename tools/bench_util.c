@@ -110,3 +110,24 @@ void bench_render_spots(uint16_t *frame, int side, const wt_grid *lenslets,
 		}
 	}
 }
+
+void json_stats(wt_json *j, const char *key, const struct stats *st)
+{
+	if (key) {
+		wt_json_key(j, key);
+	}
+	wt_json_object_begin(j);
+	wt_json_key(j, "p50_ns");
+	wt_json_double_prec(j, st->p50, 8);
+	wt_json_key(j, "p99_ns");
+	wt_json_double_prec(j, st->p99, 8);
+	wt_json_key(j, "p99_9_ns");
+	wt_json_double_prec(j, st->p999, 8);
+	wt_json_key(j, "max_ns");
+	wt_json_double_prec(j, st->max, 8);
+	wt_json_key(j, "min_ns");
+	wt_json_double_prec(j, st->min, 8);
+	wt_json_key(j, "mean_ns");
+	wt_json_double_prec(j, st->mean, 8);
+	wt_json_object_end(j);
+}

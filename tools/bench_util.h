@@ -10,6 +10,7 @@
 #include <stdint.h>
 
 #include "wt_geometry.h"
+#include "wt_json.h"
 
 /* The synthetic frame: background level, spot peak above it, and the spot
  * width and offset range as fractions of the window side. */
@@ -35,6 +36,10 @@ double percentile(const uint64_t *v, long n, double p);
 
 /** Sorts v (n values) and fills *st; all 0 for n <= 0. */
 void stats_of(uint64_t *v, long n, struct stats *st);
+
+/** key: {p50_ns, p99_ns, p99_9_ns, max_ns, min_ns, mean_ns} (key NULL:
+ * an array element). */
+void json_stats(wt_json *j, const char *key, const struct stats *st);
 
 /** Pin a thread to one CPU: 0 or a negative errno. */
 int pin_thread(pthread_t thread, int cpu);
