@@ -31,6 +31,7 @@ struct replay {
 	uint64_t *recv_ns; /* max_frames; 0: not answered */
 	uint64_t *lat;	   /* max_frames: scratch for the stats */
 	uint64_t next_id;
+	unsigned next_buf; /* buffer of the next frame */
 	const volatile sig_atomic_t *stop;
 };
 
@@ -196,7 +197,11 @@ static bool send_retry(void *sock, zmq_msg_t *msg)
 /* Send frame i of the run (id base + i) without a copy; 0 or -EAGAIN. */
 static int send_frame(replay *r, uint64_t base, long i)
 {
-	uint8_t *buf = r->buffers + r->stride * (size_t)(i % r->prerender);
+	/* The buffer advances only when a frame was taken: libzmq holds at
+	 * most REPLAY_HWM queued frames and the one being written, so a
+	 * buffer is rewritten only after prerender >= 2 x REPLAY_HWM later
+	 * frames were taken, never while it may still go out. */
+	uint8_t *buf = r->buffers + r->stride * (size_t)r->next_buf;
 	wt_header h = {.version = WT_PROTO_VERSION,
 		       .kind = WT_KIND_PIXELS_U16,
 		       .sequence = base + (uint64_t)i,
@@ -217,6 +222,7 @@ static int send_frame(replay *r, uint64_t base, long i)
 		zmq_msg_close(&msg);
 		return -EAGAIN;
 	}
+	r->next_buf = (r->next_buf + 1) % (unsigned)r->prerender;
 	r->send_ns[i] = t;
 	return 0;
 }
