@@ -4,6 +4,8 @@
  *
  *   wavetrim-bench [--frames N] [--systems S,M,L] [--mvm auto|blas|own]
  *                  [--split S,M,L|none] [--cpu N] [--json] [--sweep]
+ *                  [--e2e S,M,L|none] [--e2e-frames N] [--rates LIST]
+ *                  [--rate-frames N] [--load] [--daemon PATH]
  *
  * For each reference system it renders one synthetic Shack-Hartmann frame
  * (Gaussian spots at random sub-pixel offsets, seeded) and runs the loop's
@@ -27,6 +29,12 @@
  * CPUs: this thread computes the first half of the rows, a worker pinned
  * to another CPU the second, handed off through a spin-waited sequence
  * number (no sleep, no wake-up).
+ *
+ * The end-to-end part (bench_e2e.c) runs the real wavetrimd per system,
+ * driven by the replay driver (replay.c) in this process: lockstep
+ * latency frame sent -> command received, against the ZeroMQ round trip
+ * of an echo peer with the same sockets and message sizes, and the highest
+ * free-running frame rate with no dropped frame.
  */
 #include <errno.h>
 #include <getopt.h>

@@ -6,6 +6,7 @@
 #include <errno.h>
 #include <fcntl.h>
 #include <math.h>
+#include <sched.h>
 #include <signal.h>
 #include <stdarg.h>
 #include <stdatomic.h>
@@ -251,8 +252,19 @@ static int start_daemon(struct e2e_run *run, const char *path,
 		int fd = open(run->log, O_WRONLY | O_CREAT | O_TRUNC, 0600);
 		int in = open("/dev/null", O_RDONLY);
 
+		cpu_set_t all;
+		int cpu;
+
 		/* never outlive the bench, even if it is killed */
 		prctl(PR_SET_PDEATHSIG, SIGKILL);
+		/* not the replay's pinning: the daemon's threads other than
+		 * the loop (pinned by daemon.cpu) go where the kernel puts
+		 * them, as on a rig (the kernel keeps the CPUs allowed) */
+		CPU_ZERO(&all);
+		for (cpu = 0; cpu < CPU_SETSIZE; cpu++) {
+			CPU_SET(cpu, &all);
+		}
+		sched_setaffinity(0, sizeof(all), &all);
 		if (fd >= 0) {
 			dup2(fd, 1);
 			dup2(fd, 2);
