@@ -1056,9 +1056,21 @@ static int parse_systems(const char *s, unsigned *out)
 	return 0;
 }
 
-enum { OPT_SPLIT = 256, OPT_WORKER_CPU, OPT_SEED, OPT_SWEEP, OPT_JSON,
-       OPT_E2E, OPT_E2E_FRAMES, OPT_E2E_WARMUP, OPT_RATES, OPT_RATE_FRAMES,
-       OPT_LOAD, OPT_DAEMON, OPT_REPLAY_CPU };
+enum {
+	OPT_SPLIT = 256,
+	OPT_WORKER_CPU,
+	OPT_SEED,
+	OPT_SWEEP,
+	OPT_JSON,
+	OPT_E2E,
+	OPT_E2E_FRAMES,
+	OPT_E2E_WARMUP,
+	OPT_RATES,
+	OPT_RATE_FRAMES,
+	OPT_LOAD,
+	OPT_DAEMON,
+	OPT_REPLAY_CPU
+};
 
 /* ---- end to end: options and the run (bench_e2e.c) ---------------------- */
 
@@ -1137,8 +1149,9 @@ static int parse_e2e_option(int c, const char *arg, struct options *opt)
 		return 0;
 	case OPT_RATES:
 		if (parse_rates(arg, e)) {
-			fprintf(stderr, "--rates: up to %d rising rates in "
-					"Hz, (0, 1e6], separated by commas\n",
+			fprintf(stderr,
+				"--rates: up to %d rising rates in "
+				"Hz, (0, 1e6], separated by commas\n",
 				E2E_RATES_MAX);
 			return -EINVAL;
 		}
@@ -1221,9 +1234,9 @@ static int run_e2e(struct bench_system *bs, int n, struct options *opt,
 	}
 	for (i = 0; i < N_SYSTEMS; i++) {
 		const struct system_def *d = &systems[i];
-		struct bench_geometry g = {d->name,	  d->lenslets,
-					   d->pixels,	  d->actuators,
-					   d->layout,	  d->pupil_pitches,
+		struct bench_geometry g = {d->name,	     d->lenslets,
+					   d->pixels,	     d->actuators,
+					   d->layout,	     d->pupil_pitches,
 					   d->margin_pitches};
 
 		if (!(opt->e2e & (1u << i))) {

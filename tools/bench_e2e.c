@@ -25,14 +25,14 @@
 #include "wt_recon.h"
 #include "wt_store.h"
 
-#define E2E_REPLY_MAX	   (512 * 1024)
-#define E2E_TOKENS	   16384
-#define E2E_REQUEST_MS	   5000
-#define E2E_START_MS	   15000
-#define E2E_STOP_MS	   5000
-#define E2E_DRAIN_MS	   1000
-#define E2E_PRERENDER	   16
-#define E2E_MIN_SV_RATIO   0.02 /* control.min_sv_ratio's default */
+#define E2E_REPLY_MAX	 (512 * 1024)
+#define E2E_TOKENS	 16384
+#define E2E_REQUEST_MS	 5000
+#define E2E_START_MS	 15000
+#define E2E_STOP_MS	 5000
+#define E2E_DRAIN_MS	 1000
+#define E2E_PRERENDER	 16
+#define E2E_MIN_SV_RATIO 0.02 /* control.min_sv_ratio's default */
 
 struct e2e_run {
 	char dir[64];
@@ -158,8 +158,7 @@ static bool reply_state_is(const struct e2e_run *run, const char *state)
 /* ---- files -------------------------------------------------------------- */
 
 static int write_ini(struct e2e_run *run, const struct bench_geometry *g,
-		     const struct bench_e2e_options *o, char *text,
-		     size_t cap)
+		     const struct bench_e2e_options *o, char *text, size_t cap)
 {
 	FILE *f;
 	int n;
@@ -175,9 +174,9 @@ static int write_ini(struct e2e_run *run, const struct bench_geometry *g,
 		     "timeout_ms = 600000\n"
 		     "[daemon]\ncontrol = %s\ntelemetry = %s\ncpu = %d\n",
 		     g->lenslets, g->pixels, FRAME_BACKGROUND, g->actuators,
-		     layout_key(g->layout), g->pupil_pitches,
-		     g->margin_pitches, run->frames, run->commands,
-		     run->control, run->telemetry, o->daemon_cpu);
+		     layout_key(g->layout), g->pupil_pitches, g->margin_pitches,
+		     run->frames, run->commands, run->control, run->telemetry,
+		     o->daemon_cpu);
 	if (n < 0 || (size_t)n >= cap) {
 		return -ENOSPC;
 	}
@@ -357,8 +356,9 @@ static void stop_load(struct e2e_run *run)
 
 static void remove_files(struct e2e_run *run, bool keep_log)
 {
-	const char *files[] = {run->ini, run->cal, run->frames, run->commands,
-			       run->control, run->telemetry,
+	const char *files[] = {run->ini,	  run->cal,
+			       run->frames,	  run->commands,
+			       run->control,	  run->telemetry,
 			       run->floor_frames, run->floor_commands};
 	size_t i;
 
@@ -380,16 +380,15 @@ static int measure_floor(struct e2e_run *run, const struct bench_e2e_options *o,
 			 const wt_grid *lens, int ppl, int n_act,
 			 struct bench_e2e_result *res)
 {
-	struct replay_config rc = {.frames_endpoint = run->floor_frames,
-				   .commands_endpoint = run->floor_commands,
-				   .lenslets = lens,
-				   .pixels_per_lenslet = ppl,
-				   .n_act = n_act,
-				   .max_frames = o->frames > o->warmup
-							 ? o->frames
-							 : o->warmup,
-				   .prerender = E2E_PRERENDER,
-				   .seed = o->seed};
+	struct replay_config rc = {
+		.frames_endpoint = run->floor_frames,
+		.commands_endpoint = run->floor_commands,
+		.lenslets = lens,
+		.pixels_per_lenslet = ppl,
+		.n_act = n_act,
+		.max_frames = o->frames > o->warmup ? o->frames : o->warmup,
+		.prerender = E2E_PRERENDER,
+		.seed = o->seed};
 	struct replay_result warm;
 	replay *r = NULL;
 	replay_echo *echo = NULL;
@@ -526,8 +525,7 @@ int bench_e2e_run(const struct bench_geometry *g,
 	snprintf(run.frames, sizeof(run.frames), "ipc://%s/frames", run.dir);
 	snprintf(run.commands, sizeof(run.commands), "ipc://%s/commands",
 		 run.dir);
-	snprintf(run.control, sizeof(run.control), "ipc://%s/control",
-		 run.dir);
+	snprintf(run.control, sizeof(run.control), "ipc://%s/control", run.dir);
 	snprintf(run.telemetry, sizeof(run.telemetry), "ipc://%s/telemetry",
 		 run.dir);
 	snprintf(run.floor_frames, sizeof(run.floor_frames),
@@ -763,19 +761,15 @@ void bench_e2e_json(wt_json *j, const struct bench_e2e_result *res, int n,
 			json_replay(j, "lockstep", &r->e2e);
 			json_replay(j, "floor", &r->floor);
 			wt_json_key(j, "daemon_latency_median_us");
-			wt_json_double_prec(j, r->daemon_latency_median_us,
-					    6);
+			wt_json_double_prec(j, r->daemon_latency_median_us, 6);
 			wt_json_key(j, "compute_total_p50_ns");
 			wt_json_double_prec(j, compute_p50_ns[i], 8);
 			wt_json_key(j, "p50_over_floor_plus_compute");
-			wt_json_double_prec(j,
-					    goal_ratio(r, compute_p50_ns[i]),
+			wt_json_double_prec(j, goal_ratio(r, compute_p50_ns[i]),
 					    4);
 			wt_json_key(j, "p99_9_over_p50");
-			wt_json_double_prec(j,
-					    r->e2e.latency.p999 /
-						    r->e2e.latency.p50,
-					    4);
+			wt_json_double_prec(
+				j, r->e2e.latency.p999 / r->e2e.latency.p50, 4);
 			wt_json_key(j, "rates");
 			wt_json_array_begin(j);
 			for (k = 0; k < r->n_rates; k++) {

@@ -58,14 +58,14 @@ struct bench_e2e_rate {
 
 struct bench_e2e_result {
 	const char *name;
-	bool done;	 /**< measured; else error says why */
+	bool done; /**< measured; else error says why */
 	char error[512];
 	size_t frame_bytes, command_bytes;
 	int n_sub, n_act;
 	struct replay_result floor, e2e;
 	int n_rates; /**< rates run (the ladder stops at the first failure) */
 	struct bench_e2e_rate rates[E2E_RATES_MAX];
-	double max_rate_hz; /**< highest passed; 0: none */
+	double max_rate_hz;		 /**< highest passed; 0: none */
 	double daemon_latency_median_us; /**< status latency_us.median */
 };
 

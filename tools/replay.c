@@ -65,8 +65,8 @@ static void *bind_socket(void *zctx, int type, const char *option,
 		zmq_setsockopt(s, ZMQ_SNDHWM, &hwm, sizeof(hwm));
 	}
 	if (zmq_bind(s, endpoint) != 0) {
-		wt_error_set(err, -EADDRINUSE, "%s: cannot bind %s: %s",
-			     option, endpoint, zmq_strerror(zmq_errno()));
+		wt_error_set(err, -EADDRINUSE, "%s: cannot bind %s: %s", option,
+			     endpoint, zmq_strerror(zmq_errno()));
 		zmq_close(s);
 		return NULL;
 	}
@@ -233,8 +233,8 @@ static void drain_commands(replay *r, uint64_t base, long n,
 			   struct replay_result *res)
 {
 	for (;;) {
-		int len = zmq_recv(r->commands, r->cmdbuf,
-				   r->command_bytes + 1, ZMQ_DONTWAIT);
+		int len = zmq_recv(r->commands, r->cmdbuf, r->command_bytes + 1,
+				   ZMQ_DONTWAIT);
 		uint64_t now = wt_clock_ns();
 		const void *payload;
 		wt_header h;
@@ -478,8 +478,8 @@ static void *echo_main(void *arg)
 			}
 			out.sequence = in.sequence;
 			out.timestamp_ns = wt_clock_ns();
-			out.payload_bytes = (uint32_t)(e->send_len -
-						       WT_PROTO_HEADER_BYTES);
+			out.payload_bytes =
+				(uint32_t)(e->send_len - WT_PROTO_HEADER_BYTES);
 			wt_proto_encode_header(&out, buf);
 			zmq_msg_init_data(&msg, buf, e->send_len, NULL, NULL);
 			if (zmq_msg_send(&msg, e->commands, ZMQ_DONTWAIT) < 0 &&

@@ -52,12 +52,12 @@ struct replay_config {
 	const char *commands_endpoint; /**< driver.commands, bound (PULL) */
 	const wt_grid *lenslets;       /**< the sensor's grid */
 	int pixels_per_lenslet;
-	int n_act;	    /**< valid actuators: the command's width */
-	long max_frames;    /**< most frames in one run */
-	int prerender;	    /**< K >= REPLAY_MIN_PRERENDER frames */
-	uint64_t seed;	    /**< of the spots */
-	uint64_t first_id;  /**< id of the first frame (above any the daemon
-			     * has seen, or it skips them as stale) */
+	int n_act;	   /**< valid actuators: the command's width */
+	long max_frames;   /**< most frames in one run */
+	int prerender;	   /**< K >= REPLAY_MIN_PRERENDER frames */
+	uint64_t seed;	   /**< of the spots */
+	uint64_t first_id; /**< id of the first frame (above any the daemon
+			    * has seen, or it skips them as stale) */
 	const volatile sig_atomic_t *stop; /**< set: runs end early; NULL ok */
 };
 

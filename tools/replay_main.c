@@ -96,8 +96,14 @@ static void print_result(const char *what, const struct replay_result *r)
 
 int main(int argc, char **argv)
 {
-	enum { OPT_LOCKSTEP = 256, OPT_WARMUP, OPT_PRERENDER, OPT_CPU,
-	       OPT_SEED, OPT_FIRST_ID };
+	enum {
+		OPT_LOCKSTEP = 256,
+		OPT_WARMUP,
+		OPT_PRERENDER,
+		OPT_CPU,
+		OPT_SEED,
+		OPT_FIRST_ID
+	};
 	static const struct option longopts[] = {
 		{"config", required_argument, NULL, 'c'},
 		{"frames", required_argument, NULL, 'n'},
@@ -147,8 +153,7 @@ int main(int argc, char **argv)
 			rate_hz = strtod(optarg, &end);
 			if (errno || end == optarg || *end != '\0' ||
 			    !(rate_hz > 0.0 && rate_hz <= 1e6)) {
-				fprintf(stderr,
-					NAME ": --rate: (0, 1e6] Hz\n");
+				fprintf(stderr, NAME ": --rate: (0, 1e6] Hz\n");
 				return 2;
 			}
 			break;
@@ -168,8 +173,9 @@ int main(int argc, char **argv)
 		case OPT_PRERENDER:
 			if (parse_long(optarg, REPLAY_MIN_PRERENDER, 4096,
 				       &prerender)) {
-				fprintf(stderr, NAME ": --prerender: %d .. "
-						     "4096\n",
+				fprintf(stderr,
+					NAME ": --prerender: %d .. "
+					     "4096\n",
 					REPLAY_MIN_PRERENDER);
 				return 2;
 			}
@@ -258,7 +264,8 @@ int main(int argc, char **argv)
 	if (warmup > 0) {
 		ret = replay_lockstep(r, warmup, (int)timeout_ms, &res);
 		if (ret < 0) {
-			wt_error_set(&err, ret, "warm-up: %s", wt_strerror(ret));
+			wt_error_set(&err, ret, "warm-up: %s",
+				     wt_strerror(ret));
 			goto out;
 		}
 		print_result("warm-up", &res);
