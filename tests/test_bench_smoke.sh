@@ -68,7 +68,8 @@ for k in ["p50_over_floor_plus_compute", "p99_9_over_p50",
           "compute_total_p50_ns", "daemon_latency_median_us"]:
     assert math.isfinite(x[k]) and x[k] > 0, (k, x[k])
 rates = x["rates"]
-assert 1 <= len(rates) <= 2 and rates[0]["rate_hz"] == 200, rates
+# both rates are below 10 kHz, so both are run whatever the outcome
+assert [t["rate_hz"] for t in rates] == [200, 500], rates
 passed = 0
 for t in rates:
     r = t["replay"]
@@ -81,8 +82,6 @@ for t in rates:
     if t["pass"]:
         assert r["missing"] == 0 and t["daemon_dropped"] == 0, t
         passed = t["rate_hz"]
-    else:
-        assert t is rates[-1], "the ladder stops at the first failure"
 assert x["max_rate_hz"] == passed, (x["max_rate_hz"], passed)
 print("bench JSON: all checks passed")
 PY

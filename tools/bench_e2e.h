@@ -11,7 +11,8 @@
  * sockets and the daemon's log.  The daemon's loop thread is pinned
  * (daemon.cpu) and the replay runs in the calling thread on the other CPU;
  * the echo peer runs on the daemon's CPU.  The loop is closed over the
- * control socket; a rate passes when the replay saw every frame it sent
+ * control socket.  Rates up to 10 kHz are always run; above, the ladder
+ * ends at the first failure.  A rate passes when the replay saw every frame it sent
  * answered and the daemon's counters (status) show no dropped, stale or
  * unsent frame.  The daemon is stopped (SIGTERM, waited for, SIGKILL after
  * a timeout) and the folder removed whatever happens.
@@ -63,7 +64,8 @@ struct bench_e2e_result {
 	size_t frame_bytes, command_bytes;
 	int n_sub, n_act;
 	struct replay_result floor, e2e;
-	int n_rates; /**< rates run (the ladder stops at the first failure) */
+	int n_rates; /**< rates run: all up to 10 kHz, then up to the first
+		      * failure */
 	struct bench_e2e_rate rates[E2E_RATES_MAX];
 	double max_rate_hz;		 /**< highest passed; 0: none */
 	double daemon_latency_median_us; /**< status latency_us.median */
