@@ -1005,6 +1005,9 @@ static void usage(FILE *out)
 		"      --replay-cpu N   CPU of the replay (default: another "
 		"than --cpu, which\n"
 		"                       the daemon's loop thread gets)\n"
+		"      --rt-priority N  the daemon's daemon.realtime_priority "
+		"(SCHED_FIFO;\n"
+		"                       default 0: normal scheduling)\n"
 		"  -h, --help           this text\n");
 }
 
@@ -1069,7 +1072,8 @@ enum {
 	OPT_RATE_FRAMES,
 	OPT_LOAD,
 	OPT_DAEMON,
-	OPT_REPLAY_CPU
+	OPT_REPLAY_CPU,
+	OPT_RT_PRIORITY
 };
 
 /* ---- end to end: options and the run (bench_e2e.c) ---------------------- */
@@ -1172,6 +1176,13 @@ static int parse_e2e_option(int c, const char *arg, struct options *opt)
 			return -EINVAL;
 		}
 		e->replay_cpu = (int)v;
+		return 0;
+	case OPT_RT_PRIORITY:
+		if (parse_long(arg, 0, 99, &v)) {
+			fprintf(stderr, "--rt-priority: 0 .. 99\n");
+			return -EINVAL;
+		}
+		e->rt_priority = (int)v;
 		return 0;
 	}
 	return -EINVAL;
@@ -1278,6 +1289,7 @@ static int parse_args(int argc, char **argv, struct options *opt)
 		{"load", no_argument, NULL, OPT_LOAD},
 		{"daemon", required_argument, NULL, OPT_DAEMON},
 		{"replay-cpu", required_argument, NULL, OPT_REPLAY_CPU},
+		{"rt-priority", required_argument, NULL, OPT_RT_PRIORITY},
 		{"help", no_argument, NULL, 'h'},
 		{NULL, 0, NULL, 0},
 	};
@@ -1355,7 +1367,7 @@ static int parse_args(int argc, char **argv, struct options *opt)
 			usage(stdout);
 			exit(0);
 		default:
-			if (c >= OPT_E2E && c <= OPT_REPLAY_CPU) {
+			if (c >= OPT_E2E && c <= OPT_RT_PRIORITY) {
 				if (parse_e2e_option(c, optarg, opt) < 0) {
 					return -EINVAL;
 				}

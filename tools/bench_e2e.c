@@ -176,11 +176,12 @@ static int write_ini(struct e2e_run *run, const struct bench_geometry *g,
 		     "pupil_pitches = %g\nmargin_pitches = %g\n"
 		     "[driver]\nframes = %s\ncommands = %s\n"
 		     "timeout_ms = 600000\n"
-		     "[daemon]\ncontrol = %s\ntelemetry = %s\ncpu = %d\n",
+		     "[daemon]\ncontrol = %s\ntelemetry = %s\ncpu = %d\n"
+		     "realtime_priority = %d\n",
 		     g->lenslets, g->pixels, FRAME_BACKGROUND, g->actuators,
 		     layout_key(g->layout), g->pupil_pitches, g->margin_pitches,
 		     run->frames, run->commands, run->control, run->telemetry,
-		     o->daemon_cpu);
+		     o->daemon_cpu, o->rt_priority);
 	if (n < 0 || (size_t)n >= cap) {
 		return -ENOSPC;
 	}
@@ -658,9 +659,9 @@ void bench_e2e_print(const struct bench_e2e_result *res, int n,
 {
 	int i, k;
 
-	printf("\nend to end: wavetrimd (%s) over ipc, loop thread on CPU %d, "
-	       "replay on CPU %d%s\n",
-	       o->daemon_path, o->daemon_cpu, o->replay_cpu,
+	printf("\nend to end: wavetrimd (%s) over ipc, loop thread on CPU %d "
+	       "(SCHED_FIFO %d; 0: normal), replay on CPU %d%s\n",
+	       o->daemon_path, o->daemon_cpu, o->rt_priority, o->replay_cpu,
 	       o->load ? ", a busy thread on the replay's CPU (--load)" : "");
 	for (i = 0; i < n; i++) {
 		const struct bench_e2e_result *r = &res[i];
@@ -747,6 +748,8 @@ void bench_e2e_json(wt_json *j, const struct bench_e2e_result *res, int n,
 	wt_json_int(j, o->replay_cpu);
 	wt_json_key(j, "load");
 	wt_json_bool(j, o->load);
+	wt_json_key(j, "realtime_priority");
+	wt_json_int(j, o->rt_priority);
 	wt_json_key(j, "frames");
 	wt_json_int(j, o->frames);
 	wt_json_key(j, "warmup");

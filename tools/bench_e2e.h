@@ -12,8 +12,8 @@
  * (daemon.cpu) and the replay runs in the calling thread on the other CPU;
  * the echo peer runs on the daemon's CPU.  The loop is closed over the
  * control socket.  Rates up to 10 kHz are always run; above, the ladder
- * ends at the first failure.  A rate passes when the replay saw every frame it sent
- * answered and the daemon's counters (status) show no dropped, stale or
+ * ends at the first failure.  A rate passes when the replay saw every frame it
+ * sent answered and the daemon's counters (status) show no dropped, stale or
  * unsent frame.  The daemon is stopped (SIGTERM, waited for, SIGKILL after
  * a timeout) and the folder removed whatever happens.
  */
@@ -47,7 +47,8 @@ struct bench_e2e_options {
 	const char *daemon_path; /**< wavetrimd */
 	int daemon_cpu, replay_cpu;
 	unsigned long seed;
-	int timeout_ms; /**< lockstep wait for one answer */
+	int timeout_ms;	 /**< lockstep wait for one answer */
+	int rt_priority; /**< daemon.realtime_priority (0: normal) */
 };
 
 struct bench_e2e_rate {
