@@ -65,8 +65,12 @@ for run in ["lockstep", "floor"]:
         assert r[k] == 0, (run, k, r[k])
     ordered(r["latency"], run)
 for k in ["p50_over_floor_plus_compute", "p99_9_over_p50",
-          "compute_total_p50_ns", "daemon_latency_median_us"]:
+          "compute_total_p50_ns"]:
     assert math.isfinite(x[k]) and x[k] > 0, (k, x[k])
+# the daemon's status median is over its last status period: null when
+# that period saw no frame
+m = x["daemon_latency_median_us"]
+assert m is None or (math.isfinite(m) and m > 0), m
 rates = x["rates"]
 # both rates are below 10 kHz, so both are run whatever the outcome
 assert [t["rate_hz"] for t in rates] == [200, 500], rates
