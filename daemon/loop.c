@@ -409,6 +409,26 @@ static void set_state(struct wtd_loop *l, int to, int why)
  * tagged with seq, and remember it as the last command.  Returns the
  * number of values clamped here, or -1 if ZeroMQ refused the message.
  */
+/*
+ * A send that found the queue full may only have found it full on paper:
+ * libzmq 4.3.4 learns that the I/O thread has taken queued messages from
+ * commands it reads at most about once a millisecond on a non-blocking
+ * send (socket_base_t::process_commands throttle), so above ~1 kHz a
+ * queue of WTD_LINK_HWM looks full although it is empty.  Reading
+ * ZMQ_EVENTS processes those commands at once; then try once more.
+ */
+static bool retry_send(void *sock, zmq_msg_t *msg)
+{
+	int events = 0;
+	size_t len = sizeof(events);
+
+	if (zmq_getsockopt(sock, ZMQ_EVENTS, &events, &len) != 0 ||
+	    !(events & ZMQ_POLLOUT)) {
+		return false;
+	}
+	return zmq_msg_send(msg, sock, ZMQ_DONTWAIT) >= 0;
+}
+
 static int send_command(struct wtd_loop *l, uint64_t seq, int *clamped)
 {
 	struct wtd *d = l->d;
@@ -453,12 +473,13 @@ static int send_command(struct wtd_loop *l, uint64_t seq, int *clamped)
 	}
 	/* No free function: a constant message, nothing allocated. */
 	zmq_msg_init_data(&msg, buf, l->send_len, NULL, NULL);
-	if (zmq_msg_send(&msg, d->s_commands, ZMQ_DONTWAIT) < 0) {
-		zmq_msg_close(&msg);
-		bump(&d->c.send_failed, 1);
-		return -1;
+	if (zmq_msg_send(&msg, d->s_commands, ZMQ_DONTWAIT) >= 0 ||
+	    (zmq_errno() == EAGAIN && retry_send(d->s_commands, &msg))) {
+		return 0;
 	}
-	return 0;
+	zmq_msg_close(&msg);
+	bump(&d->c.send_failed, 1);
+	return -1;
 }
 
 static void cmd_from(struct wtd_loop *l, const float *src)

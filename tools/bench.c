@@ -5,6 +5,8 @@
  *   wavetrim-bench [--frames N] [--systems S,M,L] [--mvm auto|blas|own]
  *                  [--split S,M,L|none] [--svd S,M,L|none] [--cpu N]
  *                  [--json] [--sweep]
+ *                  [--e2e S,M,L|none] [--e2e-frames N] [--rates LIST]
+ *                  [--rate-frames N] [--load] [--daemon PATH]
  *
  * For each reference system it renders one synthetic Shack-Hartmann frame
  * (Gaussian spots at random sub-pixel offsets, seeded) and runs the loop's
@@ -32,6 +34,12 @@
  * --svd times, for the systems listed (L by default), the daemon's build
  * of the control matrix from a modelled interaction matrix next to a bare
  * LAPACKE_dgesdd of the same size (tools/bench_svd.h).
+ *
+ * The end-to-end part (bench_e2e.c) runs the real wavetrimd per system,
+ * driven by the replay driver (replay.c) in this process: lockstep
+ * latency frame sent -> command received, against the ZeroMQ round trip
+ * of an echo peer with the same sockets and message sizes, and the highest
+ * free-running frame rate with no dropped frame.
  */
 #include <errno.h>
 #include <getopt.h>
@@ -44,11 +52,14 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <unistd.h>
 
 #include <cblas.h>
 
+#include "bench_e2e.h"
 #include "bench_stream.h"
 #include "bench_svd.h"
+#include "bench_util.h"
 #include "wt_centroid.h"
 #include "wt_clock.h"
 #include "wt_config.h"
@@ -60,13 +71,6 @@
 #include "wt_mvm_split.h"
 
 #define BENCH_JSON_MAX (256 * 1024)
-
-/* The synthetic frame: background level, spot peak above it, and the spot
- * width and offset range as fractions of the window side. */
-#define FRAME_BACKGROUND       100.0
-#define FRAME_PEAK	       3000.0
-#define SPOT_SIGMA_PER_PIXELS  (1.0 / 8.0)
-#define SPOT_OFFSET_PER_PIXELS 0.125
 
 /* Controller settings: typical values, they do not change the work done. */
 #define CONTROL_GAIN 0.3f
@@ -125,10 +129,9 @@ struct options {
 	unsigned long seed;
 	bool json;
 	bool sweep;
-};
-
-struct stats {
-	double p50, p99, p999, max, min, mean; /* ns */
+	unsigned e2e; /* bit i: systems[i] end to end (bench_e2e.c) */
+	struct bench_e2e_options e2e_opt;
+	char daemon_path[4096];
 };
 
 /* The timings of one run of frames: per frame, in ns. */
@@ -177,75 +180,6 @@ struct bench_system {
 
 /* ---- small helpers ------------------------------------------------------ */
 
-/* splitmix64 (Steele, Lea and Flood, 2014): seeded, repeatable. */
-static uint64_t rng_next(uint64_t *state)
-{
-	uint64_t z = (*state += 0x9e3779b97f4a7c15ull);
-
-	z = (z ^ (z >> 30)) * 0xbf58476d1ce4e5b9ull;
-	z = (z ^ (z >> 27)) * 0x94d049bb133111ebull;
-	return z ^ (z >> 31);
-}
-
-/* Uniform in [0, 1). */
-static double rng_uniform(uint64_t *state)
-{
-	return (double)(rng_next(state) >> 11) * (1.0 / 9007199254740992.0);
-}
-
-static int cmp_u64(const void *a, const void *b)
-{
-	uint64_t x = *(const uint64_t *)a, y = *(const uint64_t *)b;
-
-	return (x > y) - (x < y);
-}
-
-/* Nearest-rank percentile of sorted v: the smallest value with at least
- * p of the samples at or below it (common practice). */
-static double percentile(const uint64_t *v, long n, double p)
-{
-	long k = (long)ceil(p * (double)n) - 1;
-
-	if (k < 0) {
-		k = 0;
-	}
-	if (k >= n) {
-		k = n - 1;
-	}
-	return (double)v[k];
-}
-
-/* Sorts v. */
-static void stats_of(uint64_t *v, long n, struct stats *st)
-{
-	double sum = 0.0;
-	long i;
-
-	memset(st, 0, sizeof(*st));
-	if (n <= 0) {
-		return;
-	}
-	qsort(v, (size_t)n, sizeof(*v), cmp_u64);
-	for (i = 0; i < n; i++) {
-		sum += (double)v[i];
-	}
-	st->p50 = percentile(v, n, 0.50);
-	st->p99 = percentile(v, n, 0.99);
-	st->p999 = percentile(v, n, 0.999);
-	st->max = (double)v[n - 1];
-	st->min = (double)v[0];
-	st->mean = sum / (double)n;
-}
-
-static int pin_thread(pthread_t thread, int cpu)
-{
-	cpu_set_t set;
-
-	CPU_ZERO(&set);
-	CPU_SET(cpu, &set);
-	return -pthread_setaffinity_np(thread, sizeof(set), &set);
-}
-
 /* The CPUs this process may run on, highest first in cpus[]. */
 static int allowed_cpus(int *cpus, int max)
 {
@@ -268,7 +202,7 @@ static double clock_overhead_ns(void)
 {
 	enum { N = 20001 };
 	uint64_t *d = malloc(N * sizeof(*d));
-	double med;
+	struct stats st;
 	int i;
 
 	if (!d) {
@@ -279,10 +213,9 @@ static double clock_overhead_ns(void)
 
 		d[i] = wt_clock_ns() - t0;
 	}
-	qsort(d, N, sizeof(*d), cmp_u64);
-	med = (double)d[N / 2];
+	stats_of(d, N, &st); /* its p50 is the median of an odd count */
 	free(d);
-	return med;
+	return st.p50;
 }
 
 static int series_alloc(struct series *s, long n)
@@ -320,36 +253,8 @@ static void series_stats(struct series *s, struct result_stage *r)
  * of the window of its centre; the true offsets are kept. */
 static void render_frame(struct bench_system *b, uint64_t *rng)
 {
-	int p = b->def->pixels, side = b->side, k, i, j;
-	double sigma = p * SPOT_SIGMA_PER_PIXELS;
-	double centre = 0.5 * (p - 1);
-
-	for (i = 0; i < side * side; i++) {
-		b->frame[i] = (uint16_t)FRAME_BACKGROUND;
-	}
-	for (k = 0; k < b->n_sub; k++) {
-		double dx = (2.0 * rng_uniform(rng) - 1.0) * p *
-			    SPOT_OFFSET_PER_PIXELS;
-		double dy = (2.0 * rng_uniform(rng) - 1.0) * p *
-			    SPOT_OFFSET_PER_PIXELS;
-		int x0 = b->lenslets->col[k] * p, y0 = b->lenslets->row[k] * p;
-
-		b->true_dx[k] = (float)dx;
-		b->true_dy[k] = (float)dy;
-		for (j = 0; j < p; j++) {
-			for (i = 0; i < p; i++) {
-				double ex = i - centre - dx,
-				       ey = j - centre - dy;
-				double v =
-					FRAME_BACKGROUND +
-					FRAME_PEAK * exp(-(ex * ex + ey * ey) /
-							 (2.0 * sigma * sigma));
-
-				b->frame[(size_t)(y0 + j) * side + x0 + i] =
-					(uint16_t)lround(v);
-			}
-		}
-	}
+	bench_render_spots(b->frame, b->side, b->lenslets, b->def->pixels, rng,
+			   b->true_dx, b->true_dy);
 }
 
 static void system_free(struct bench_system *b)
@@ -823,25 +728,6 @@ static void print_table(struct bench_system *bs, int n,
 	}
 }
 
-static void json_stats(wt_json *j, const char *key, const struct stats *st)
-{
-	wt_json_key(j, key);
-	wt_json_object_begin(j);
-	wt_json_key(j, "p50_ns");
-	wt_json_double_prec(j, st->p50, 8);
-	wt_json_key(j, "p99_ns");
-	wt_json_double_prec(j, st->p99, 8);
-	wt_json_key(j, "p99_9_ns");
-	wt_json_double_prec(j, st->p999, 8);
-	wt_json_key(j, "max_ns");
-	wt_json_double_prec(j, st->max, 8);
-	wt_json_key(j, "min_ns");
-	wt_json_double_prec(j, st->min, 8);
-	wt_json_key(j, "mean_ns");
-	wt_json_double_prec(j, st->mean, 8);
-	wt_json_object_end(j);
-}
-
 static void json_stage(wt_json *j, const char *key,
 		       const struct result_stage *r, double floor_ns)
 {
@@ -894,7 +780,9 @@ static void json_loadavg(wt_json *j, const char *key, const double *l)
 
 static int print_json(struct bench_system *bs, int n, const struct options *opt,
 		      const double load[2][3], int worker_cpu, double clock_ns,
-		      const struct bench_stream *sweep, int n_sweep)
+		      const struct bench_stream *sweep, int n_sweep,
+		      const struct bench_e2e_result *e2e, int n_e2e,
+		      const double *e2e_compute)
 {
 	char *buf = malloc(BENCH_JSON_MAX);
 	wt_json j;
@@ -1065,6 +953,9 @@ static int print_json(struct bench_system *bs, int n, const struct options *opt,
 		}
 		wt_json_array_end(&j);
 	}
+	if (n_e2e > 0) {
+		bench_e2e_json(&j, e2e, n_e2e, e2e_compute, &opt->e2e_opt);
+	}
 	wt_json_object_end(&j);
 	len = wt_json_finish(&j);
 	if (len < 0) {
@@ -1115,6 +1006,31 @@ static void usage(FILE *out)
 		"16 KiB to 256 MiB\n"
 		"      --json           one JSON object instead of the "
 		"tables\n"
+		"\n"
+		"end to end (the real wavetrimd, driven by the replay "
+		"driver over ipc):\n"
+		"      --e2e LIST       systems run end to end (default "
+		"S,M,L; none for none)\n"
+		"      --e2e-frames N   lockstep frames timed, e2e and "
+		"ZeroMQ floor (default 10000)\n"
+		"      --e2e-warmup N   lockstep frames first, not timed "
+		"(default 500)\n"
+		"      --rates LIST     free-running rates in Hz, rising "
+		"(default\n"
+		"                       2000,5000,10000,15000,20000,30000,"
+		"50000)\n"
+		"      --rate-frames N  frames at each rate (default "
+		"100000)\n"
+		"      --load           a busy thread on the replay's CPU "
+		"meanwhile\n"
+		"      --daemon PATH    wavetrimd (default: "
+		"../daemon/wavetrimd from this program)\n"
+		"      --replay-cpu N   CPU of the replay (default: another "
+		"than --cpu, which\n"
+		"                       the daemon's loop thread gets)\n"
+		"      --rt-priority N  the daemon's daemon.realtime_priority "
+		"(SCHED_FIFO;\n"
+		"                       default 0: normal scheduling)\n"
 		"  -h, --help           this text\n");
 }
 
@@ -1174,7 +1090,208 @@ enum {
 	OPT_JSON,
 	OPT_SVD,
 	OPT_SVD_RUNS,
+	OPT_E2E,
+	OPT_E2E_FRAMES,
+	OPT_E2E_WARMUP,
+	OPT_RATES,
+	OPT_RATE_FRAMES,
+	OPT_LOAD,
+	OPT_DAEMON,
+	OPT_REPLAY_CPU,
+	OPT_RT_PRIORITY
 };
+
+/* ---- end to end: options and the run (bench_e2e.c) ---------------------- */
+
+static void e2e_defaults(struct options *opt)
+{
+	static const double rates[] = {2000,  5000,  10000, 15000,
+				       20000, 30000, 50000};
+	struct bench_e2e_options *e = &opt->e2e_opt;
+	size_t i;
+
+	opt->e2e = (1u << N_SYSTEMS) - 1;
+	memset(e, 0, sizeof(*e));
+	e->frames = 10000;
+	e->warmup = 500;
+	e->rate_frames = 100000;
+	for (i = 0; i < sizeof(rates) / sizeof(rates[0]); i++) {
+		e->rates_hz[e->n_rates++] = rates[i];
+	}
+	e->daemon_cpu = -1;
+	e->replay_cpu = -1;
+	e->timeout_ms = 1000;
+	opt->daemon_path[0] = '\0';
+}
+
+/* "2000,5000,..." in Hz, rising. */
+static int parse_rates(const char *s, struct bench_e2e_options *e)
+{
+	const char *p = s;
+	int n = 0;
+
+	while (*p) {
+		char *end;
+		double v;
+
+		errno = 0;
+		v = strtod(p, &end);
+		if (errno || end == p || !(v > 0.0 && v <= 1e6) ||
+		    n == E2E_RATES_MAX || (n > 0 && v <= e->rates_hz[n - 1]) ||
+		    (*end != ',' && *end != '\0')) {
+			return -EINVAL;
+		}
+		e->rates_hz[n++] = v;
+		p = *end ? end + 1 : end;
+	}
+	if (n == 0) {
+		return -EINVAL;
+	}
+	e->n_rates = n;
+	return 0;
+}
+
+static int parse_e2e_option(int c, const char *arg, struct options *opt)
+{
+	struct bench_e2e_options *e = &opt->e2e_opt;
+	long v;
+
+	switch (c) {
+	case OPT_E2E:
+		if (parse_systems(arg, &opt->e2e)) {
+			fprintf(stderr, "--e2e: a list of S, M, L, or none\n");
+			return -EINVAL;
+		}
+		return 0;
+	case OPT_E2E_FRAMES:
+	case OPT_E2E_WARMUP:
+	case OPT_RATE_FRAMES:
+		if (parse_long(arg, c == OPT_E2E_WARMUP ? 0 : 1, 10000000,
+			       &v)) {
+			fprintf(stderr, "--e2e-frames, --e2e-warmup, "
+					"--rate-frames: 0 .. 1e7\n");
+			return -EINVAL;
+		}
+		*(c == OPT_E2E_FRAMES	? &e->frames
+		  : c == OPT_E2E_WARMUP ? &e->warmup
+					: &e->rate_frames) = v;
+		return 0;
+	case OPT_RATES:
+		if (parse_rates(arg, e)) {
+			fprintf(stderr,
+				"--rates: up to %d rising rates in "
+				"Hz, (0, 1e6], separated by commas\n",
+				E2E_RATES_MAX);
+			return -EINVAL;
+		}
+		return 0;
+	case OPT_LOAD:
+		e->load = true;
+		return 0;
+	case OPT_DAEMON:
+		if (strlen(arg) >= sizeof(opt->daemon_path)) {
+			fprintf(stderr, "--daemon: path too long\n");
+			return -EINVAL;
+		}
+		strcpy(opt->daemon_path, arg);
+		return 0;
+	case OPT_REPLAY_CPU:
+		if (parse_long(arg, 0, CPU_SETSIZE - 1, &v)) {
+			fprintf(stderr, "--replay-cpu: a CPU number\n");
+			return -EINVAL;
+		}
+		e->replay_cpu = (int)v;
+		return 0;
+	case OPT_RT_PRIORITY:
+		if (parse_long(arg, 0, 99, &v)) {
+			fprintf(stderr, "--rt-priority: 0 .. 99\n");
+			return -EINVAL;
+		}
+		e->rt_priority = (int)v;
+		return 0;
+	}
+	return -EINVAL;
+}
+
+/* wavetrimd beside this program's build folder: ../daemon/wavetrimd. */
+static int find_daemon(struct options *opt)
+{
+	char exe[4096], *slash;
+	ssize_t n;
+
+	if (opt->daemon_path[0]) {
+		return access(opt->daemon_path, X_OK) == 0 ? 0 : -errno;
+	}
+	n = readlink("/proc/self/exe", exe, sizeof(exe) - 1);
+	if (n <= 0) {
+		return -ENOENT;
+	}
+	exe[n] = '\0';
+	slash = strrchr(exe, '/');
+	if (!slash) {
+		return -ENOENT;
+	}
+	*slash = '\0';
+	if ((size_t)snprintf(opt->daemon_path, sizeof(opt->daemon_path),
+			     "%s/../daemon/wavetrimd",
+			     exe) >= sizeof(opt->daemon_path)) {
+		return -ENAMETOOLONG;
+	}
+	return access(opt->daemon_path, X_OK) == 0 ? 0 : -errno;
+}
+
+/* Every system of opt->e2e end to end; the compute part's total p50 of
+ * the same system (NaN if it was not measured) into compute_p50[]. */
+static int run_e2e(struct bench_system *bs, int n, struct options *opt,
+		   const int *cpus, int n_cpus, struct bench_e2e_result *res,
+		   double *compute_p50)
+{
+	struct bench_e2e_options *e = &opt->e2e_opt;
+	int i, k, m = 0, ret;
+
+	ret = find_daemon(opt);
+	if (ret < 0) {
+		fprintf(stderr,
+			"wavetrimd not found at %s (%s): build it, give "
+			"--daemon PATH, or --e2e none\n",
+			opt->daemon_path, strerror(-ret));
+		return ret;
+	}
+	e->daemon_path = opt->daemon_path;
+	e->daemon_cpu = opt->cpu;
+	e->seed = opt->seed;
+	for (i = 0; e->replay_cpu < 0 && i < n_cpus; i++) {
+		if (cpus[i] != opt->cpu) {
+			e->replay_cpu = cpus[i];
+		}
+	}
+	if (e->replay_cpu < 0) {
+		e->replay_cpu = opt->cpu; /* one CPU: both on it */
+	}
+	for (i = 0; i < N_SYSTEMS; i++) {
+		const struct system_def *d = &systems[i];
+		struct bench_geometry g = {d->name,	     d->lenslets,
+					   d->pixels,	     d->actuators,
+					   d->layout,	     d->pupil_pitches,
+					   d->margin_pitches};
+
+		if (!(opt->e2e & (1u << i))) {
+			continue;
+		}
+		compute_p50[m] = NAN;
+		for (k = 0; k < n; k++) {
+			if (bs[k].def == d) {
+				compute_p50[m] = bs[k].single.total.p50;
+			}
+		}
+		if (bench_e2e_run(&g, e, &res[m]) < 0) {
+			fprintf(stderr, "%s end to end: %s\n", d->name,
+				res[m].error);
+		}
+		m++;
+	}
+	return m;
+}
 
 static int parse_args(int argc, char **argv, struct options *opt)
 {
@@ -1191,6 +1308,15 @@ static int parse_args(int argc, char **argv, struct options *opt)
 		{"seed", required_argument, NULL, OPT_SEED},
 		{"sweep", no_argument, NULL, OPT_SWEEP},
 		{"json", no_argument, NULL, OPT_JSON},
+		{"e2e", required_argument, NULL, OPT_E2E},
+		{"e2e-frames", required_argument, NULL, OPT_E2E_FRAMES},
+		{"e2e-warmup", required_argument, NULL, OPT_E2E_WARMUP},
+		{"rates", required_argument, NULL, OPT_RATES},
+		{"rate-frames", required_argument, NULL, OPT_RATE_FRAMES},
+		{"load", no_argument, NULL, OPT_LOAD},
+		{"daemon", required_argument, NULL, OPT_DAEMON},
+		{"replay-cpu", required_argument, NULL, OPT_REPLAY_CPU},
+		{"rt-priority", required_argument, NULL, OPT_RT_PRIORITY},
 		{"help", no_argument, NULL, 'h'},
 		{NULL, 0, NULL, 0},
 	};
@@ -1209,6 +1335,7 @@ static int parse_args(int argc, char **argv, struct options *opt)
 	opt->seed = 1;
 	opt->json = false;
 	opt->sweep = false;
+	e2e_defaults(opt);
 	while ((c = getopt_long(argc, argv, "n:w:s:m:c:h", longopts, NULL)) !=
 	       -1) {
 		switch (c) {
@@ -1282,6 +1409,12 @@ static int parse_args(int argc, char **argv, struct options *opt)
 			usage(stdout);
 			exit(0);
 		default:
+			if (c >= OPT_E2E && c <= OPT_RT_PRIORITY) {
+				if (parse_e2e_option(c, optarg, opt) < 0) {
+					return -EINVAL;
+				}
+				break;
+			}
 			usage(stderr);
 			return -EINVAL;
 		}
@@ -1306,6 +1439,9 @@ int main(int argc, char **argv)
 {
 	struct bench_system bs[N_SYSTEMS];
 	struct bench_stream sweep[SWEEP_MAX];
+	struct bench_e2e_result e2e[N_SYSTEMS];
+	double e2e_compute[N_SYSTEMS];
+	int n_e2e = 0;
 	struct options opt;
 	double load[2][3], clock_ns;
 	int cpus[CPU_SETSIZE < 1024 ? CPU_SETSIZE : 1024];
@@ -1367,6 +1503,13 @@ int main(int argc, char **argv)
 		wt_control_swap_matrix(bs[n].whole, NULL);
 		n++;
 	}
+	if (opt.e2e) {
+		n_e2e = run_e2e(bs, n, &opt, cpus, n_cpus, e2e, e2e_compute);
+		if (n_e2e < 0) {
+			n_e2e = 0;
+			goto out;
+		}
+	}
 	if (opt.sweep) {
 		size_t ws;
 
@@ -1388,13 +1531,17 @@ int main(int argc, char **argv)
 
 	if (opt.json) {
 		if (print_json(bs, n, &opt, (const double(*)[3])load,
-			       worker_cpu, clock_ns, sweep, n_sweep) < 0) {
+			       worker_cpu, clock_ns, sweep, n_sweep, e2e, n_e2e,
+			       e2e_compute) < 0) {
 			fprintf(stderr, "JSON output too large\n");
 			goto out;
 		}
 	} else {
 		print_table(bs, n, &opt, (const double(*)[3])load, worker_cpu,
 			    clock_ns);
+		if (n_e2e > 0) {
+			bench_e2e_print(e2e, n_e2e, e2e_compute, &opt.e2e_opt);
+		}
 		if (n_sweep > 0) {
 			printf("\nSTREAM (%s) by working set:\n%12s %10s "
 			       "%10s\n",
@@ -1408,6 +1555,9 @@ int main(int argc, char **argv)
 		}
 	}
 	status = 0;
+	for (i = 0; i < n_e2e; i++) {
+		status |= !e2e[i].done; /* said on stderr and in the output */
+	}
 out:
 	for (i = 0; i < n; i++) {
 		system_free(&bs[i]);
