@@ -1031,6 +1031,12 @@ static void usage(FILE *out)
 		"      --rt-priority N  the daemon's daemon.realtime_priority "
 		"(SCHED_FIFO;\n"
 		"                       default 0: normal scheduling)\n"
+		"      --driver-rt-priority N\n"
+		"                       SCHED_FIFO of the replay driver and "
+		"its "
+		"ZeroMQ threads\n"
+		"                       (default 0; --load stays normal)\n"
+		"      --busy-poll      daemon.busy_poll = true\n"
 		"  -h, --help           this text\n");
 }
 
@@ -1098,6 +1104,8 @@ enum {
 	OPT_LOAD,
 	OPT_DAEMON,
 	OPT_REPLAY_CPU,
+	OPT_DRIVER_RT_PRIORITY,
+	OPT_BUSY_POLL,
 	OPT_RT_PRIORITY
 };
 
@@ -1203,11 +1211,17 @@ static int parse_e2e_option(int c, const char *arg, struct options *opt)
 		e->replay_cpu = (int)v;
 		return 0;
 	case OPT_RT_PRIORITY:
+	case OPT_DRIVER_RT_PRIORITY:
 		if (parse_long(arg, 0, 99, &v)) {
-			fprintf(stderr, "--rt-priority: 0 .. 99\n");
+			fprintf(stderr, "--%srt-priority: 0 .. 99\n",
+				c == OPT_RT_PRIORITY ? "" : "driver-");
 			return -EINVAL;
 		}
-		e->rt_priority = (int)v;
+		*(c == OPT_RT_PRIORITY ? &e->rt_priority
+				       : &e->driver_rt_priority) = (int)v;
+		return 0;
+	case OPT_BUSY_POLL:
+		e->busy_poll = true;
 		return 0;
 	}
 	return -EINVAL;
@@ -1317,6 +1331,9 @@ static int parse_args(int argc, char **argv, struct options *opt)
 		{"daemon", required_argument, NULL, OPT_DAEMON},
 		{"replay-cpu", required_argument, NULL, OPT_REPLAY_CPU},
 		{"rt-priority", required_argument, NULL, OPT_RT_PRIORITY},
+		{"driver-rt-priority", required_argument, NULL,
+		 OPT_DRIVER_RT_PRIORITY},
+		{"busy-poll", no_argument, NULL, OPT_BUSY_POLL},
 		{"help", no_argument, NULL, 'h'},
 		{NULL, 0, NULL, 0},
 	};

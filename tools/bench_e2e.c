@@ -177,11 +177,12 @@ static int write_ini(struct e2e_run *run, const struct bench_geometry *g,
 		     "[driver]\nframes = %s\ncommands = %s\n"
 		     "timeout_ms = 600000\n"
 		     "[daemon]\ncontrol = %s\ntelemetry = %s\ncpu = %d\n"
-		     "realtime_priority = %d\n",
+		     "realtime_priority = %d\nbusy_poll = %s\n",
 		     g->lenslets, g->pixels, FRAME_BACKGROUND, g->actuators,
 		     layout_key(g->layout), g->pupil_pitches, g->margin_pitches,
 		     run->frames, run->commands, run->control, run->telemetry,
-		     o->daemon_cpu, o->rt_priority);
+		     o->daemon_cpu, o->rt_priority,
+		     o->busy_poll ? "true" : "false");
 	if (n < 0 || (size_t)n >= cap) {
 		return -ENOSPC;
 	}
@@ -269,6 +270,13 @@ static int start_daemon(struct e2e_run *run, const char *path,
 			CPU_SET(cpu, &all);
 		}
 		sched_setaffinity(0, sizeof(all), &all);
+		/* nor the replay's SCHED_FIFO (--driver-rt-priority): the
+		 * daemon's own daemon.realtime_priority decides */
+		{
+			struct sched_param sp = {.sched_priority = 0};
+
+			sched_setscheduler(0, SCHED_OTHER, &sp);
+		}
 		if (fd >= 0) {
 			dup2(fd, 1);
 			dup2(fd, 2);
@@ -337,8 +345,20 @@ static void *load_main(void *arg)
 
 static int start_load(struct e2e_run *run, int cpu)
 {
+	struct sched_param sp = {.sched_priority = 0};
+	pthread_attr_t attr;
+	int rc;
+
+	/* normal scheduling even when the replay runs SCHED_FIFO: the load
+	 * is other work on the machine, not part of the loop */
+	pthread_attr_init(&attr);
+	pthread_attr_setinheritsched(&attr, PTHREAD_EXPLICIT_SCHED);
+	pthread_attr_setschedpolicy(&attr, SCHED_OTHER);
+	pthread_attr_setschedparam(&attr, &sp);
 	atomic_init(&run->load_stop, false);
-	if (pthread_create(&run->load, NULL, load_main, run) != 0) {
+	rc = pthread_create(&run->load, &attr, load_main, run);
+	pthread_attr_destroy(&attr);
+	if (rc != 0) {
 		return -EAGAIN;
 	}
 	run->load_running = true;
@@ -577,6 +597,19 @@ int bench_e2e_run(const struct bench_geometry *g,
 	if (o->replay_cpu >= 0) {
 		pin_thread(pthread_self(), o->replay_cpu);
 	}
+	if (o->driver_rt_priority > 0) {
+		/* a real-time camera driver would run so; set before the
+		 * first socket, so libzmq's I/O threads inherit it */
+		struct sched_param sp = {.sched_priority =
+						 o->driver_rt_priority};
+		int e = pthread_setschedparam(pthread_self(), SCHED_FIFO, &sp);
+
+		if (e != 0) {
+			ret = fail(res, -e, "--driver-rt-priority %d: %s",
+				   o->driver_rt_priority, strerror(e));
+			goto out;
+		}
+	}
 	if (o->load && start_load(&run, o->replay_cpu) < 0) {
 		ret = fail(res, -EAGAIN, "no thread for --load");
 		goto out;
@@ -660,8 +693,11 @@ void bench_e2e_print(const struct bench_e2e_result *res, int n,
 	int i, k;
 
 	printf("\nend to end: wavetrimd (%s) over ipc, loop thread on CPU %d "
-	       "(SCHED_FIFO %d; 0: normal), replay on CPU %d%s\n",
-	       o->daemon_path, o->daemon_cpu, o->rt_priority, o->replay_cpu,
+	       "(SCHED_FIFO %d; 0: normal)%s, replay on CPU %d (SCHED_FIFO "
+	       "%d)%s\n",
+	       o->daemon_path, o->daemon_cpu, o->rt_priority,
+	       o->busy_poll ? " busy-polling" : "", o->replay_cpu,
+	       o->driver_rt_priority,
 	       o->load ? ", a busy thread on the replay's CPU (--load)" : "");
 	for (i = 0; i < n; i++) {
 		const struct bench_e2e_result *r = &res[i];
@@ -750,6 +786,10 @@ void bench_e2e_json(wt_json *j, const struct bench_e2e_result *res, int n,
 	wt_json_bool(j, o->load);
 	wt_json_key(j, "realtime_priority");
 	wt_json_int(j, o->rt_priority);
+	wt_json_key(j, "driver_realtime_priority");
+	wt_json_int(j, o->driver_rt_priority);
+	wt_json_key(j, "busy_poll");
+	wt_json_bool(j, o->busy_poll);
 	wt_json_key(j, "frames");
 	wt_json_int(j, o->frames);
 	wt_json_key(j, "warmup");

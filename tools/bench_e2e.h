@@ -47,8 +47,11 @@ struct bench_e2e_options {
 	const char *daemon_path; /**< wavetrimd */
 	int daemon_cpu, replay_cpu;
 	unsigned long seed;
-	int timeout_ms;	 /**< lockstep wait for one answer */
-	int rt_priority; /**< daemon.realtime_priority (0: normal) */
+	int timeout_ms;		/**< lockstep wait for one answer */
+	int rt_priority;	/**< daemon.realtime_priority (0: normal) */
+	int driver_rt_priority; /**< SCHED_FIFO of the replay and its
+				     ZeroMQ threads (0: normal) */
+	bool busy_poll;		/**< daemon.busy_poll */
 };
 
 struct bench_e2e_rate {
