@@ -203,7 +203,7 @@ int wt_grid_lenslets(int n, double obscuration, double min_fill, wt_grid **out,
 	return 0;
 }
 
-static const char *wt_layout_name(enum wt_layout layout)
+const char *wt_layout_name(enum wt_layout layout)
 {
 	switch (layout) {
 	case WT_LAYOUT_SQUARE:

@@ -85,6 +85,9 @@ enum wt_layout {
 int wt_grid_actuators(int n, enum wt_layout layout, double pupil_pitches,
 		      double margin_pitches, wt_grid **out, wt_error *err);
 
+/** "square", "corners", "circle" (the mirror.layout words); "unknown". */
+const char *wt_layout_name(enum wt_layout layout);
+
 /** Free a grid made by this module (NULL is allowed). */
 void wt_grid_destroy(wt_grid *g);
 

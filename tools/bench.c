@@ -569,19 +569,6 @@ static int system_svd(struct bench_system *b, const struct options *opt,
 
 /* ---- output ------------------------------------------------------------- */
 
-static const char *layout_name(enum wt_layout l)
-{
-	switch (l) {
-	case WT_LAYOUT_SQUARE:
-		return "square";
-	case WT_LAYOUT_CORNERS:
-		return "corners";
-	case WT_LAYOUT_CIRCLE:
-		return "circle";
-	}
-	return "?";
-}
-
 static const char *mvm_label(const wt_mvm *m, char *buf, size_t len)
 {
 	if (wt_mvm_kind_of(m) == WT_MVM_OWN) {
@@ -642,7 +629,7 @@ static void print_table(struct bench_system *bs, int n,
 		       "(%d slopes); %dx%d actuators %s, %d valid\n",
 		       d->name, d->lenslets, d->lenslets, d->pixels, b->side,
 		       b->side, b->n_sub, b->n_slopes, d->actuators,
-		       d->actuators, layout_name(d->layout), b->n_act);
+		       d->actuators, wt_layout_name(d->layout), b->n_act);
 		wt_mvm_timing(b->mvm, &own_ns, &blas_ns, &runs);
 		printf("  mvm kernel: %s",
 		       mvm_label(b->mvm, label, sizeof(label)));
@@ -849,7 +836,7 @@ static int print_json(struct bench_system *bs, int n, const struct options *opt,
 		wt_json_key(&j, "actuator_grid");
 		wt_json_int(&j, d->actuators);
 		wt_json_key(&j, "actuator_layout");
-		wt_json_string(&j, layout_name(d->layout));
+		wt_json_string(&j, wt_layout_name(d->layout));
 		wt_json_key(&j, "actuators");
 		wt_json_int(&j, b->n_act);
 

@@ -66,19 +66,6 @@ static int fail(struct bench_e2e_result *res, int code, const char *fmt, ...)
 	return code < 0 ? code : -EIO;
 }
 
-static const char *layout_key(enum wt_layout l)
-{
-	switch (l) {
-	case WT_LAYOUT_SQUARE:
-		return "square";
-	case WT_LAYOUT_CORNERS:
-		return "corners";
-	case WT_LAYOUT_CIRCLE:
-		return "circle";
-	}
-	return "square";
-}
-
 /* ---- the control socket ------------------------------------------------- */
 
 /* One request line, its reply parsed into run->toks; 1 for ok:true, 0 for
@@ -179,10 +166,10 @@ static int write_ini(struct e2e_run *run, const struct bench_geometry *g,
 		     "[daemon]\ncontrol = %s\ntelemetry = %s\ncpu = %d\n"
 		     "realtime_priority = %d\nbusy_poll = %s\n",
 		     g->lenslets, g->pixels, FRAME_BACKGROUND, g->actuators,
-		     layout_key(g->layout), g->pupil_pitches, g->margin_pitches,
-		     run->frames, run->commands, run->control, run->telemetry,
-		     o->daemon_cpu, o->rt_priority,
-		     o->busy_poll ? "true" : "false");
+		     wt_layout_name(g->layout), g->pupil_pitches,
+		     g->margin_pitches, run->frames, run->commands,
+		     run->control, run->telemetry, o->daemon_cpu,
+		     o->rt_priority, o->busy_poll ? "true" : "false");
 	if (n < 0 || (size_t)n >= cap) {
 		return -ENOSPC;
 	}
