@@ -24,6 +24,12 @@
 
 #define CAL_FILE WT_BINARY_DIR "/tests/e2e-demo-calibration.h5"
 
+#ifdef __SANITIZE_ADDRESS__
+#define UNDER_ASAN 1
+#else
+#define UNDER_ASAN 0
+#endif
+
 /* Mean truth RMS (piston removed, nm) over n frames. */
 static double mean_rms(e2e *e, int n, double *strehl)
 {
@@ -499,6 +505,12 @@ static void alloc_probe_run(const char *const *ov, bool split)
 	FILE *f;
 	e2e e;
 
+	if (UNDER_ASAN) {
+		/* the probe and AddressSanitizer both interpose malloc, and
+		 * ASan refuses a preloaded library ahead of its runtime: the
+		 * count is taken in the normal build only */
+		skip();
+	}
 	assert_int_equal(e2e_setup(&e, ov), 0);
 	snprintf(report, sizeof(report), "%s",
 		 WT_BINARY_DIR "/tests/alloc-report.txt");
@@ -709,7 +721,10 @@ static void realtime_settings_are_applied_and_loop_corrects(void **st)
 		print_message("SCHED_FIFO not granted here: warned once\n");
 		assert_int_equal(log_lines_with(&e, "not granted"), 1);
 	}
-	if (log_lines_with(&e, "mlockall") == 0) {
+	/* AddressSanitizer's mlockall interceptor does nothing and returns
+	 * 0 (sanitizer_common: mlock is not supported with its shadow
+	 * memory), so VmLck is read only without it. */
+	if (!UNDER_ASAN && log_lines_with(&e, "mlockall") == 0) {
 		assert_true(locked_kib(e.daemon) > 0);
 	}
 	close_and_measure(&e, &rms0, &rms1);
